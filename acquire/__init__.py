@@ -1,0 +1,3 @@
+"""flipsweep: unattended current-reversal magnetotransport sweeps."""
+
+__version__ = "0.1.0"
