@@ -1,0 +1,138 @@
+"""The output folder of one run: its files, run.json, the status heartbeat and the log."""
+
+from __future__ import annotations
+
+import hashlib
+import json
+import logging
+import os
+import platform
+import shutil
+import socket
+import sys
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from importlib import metadata
+from pathlib import Path
+from typing import Any
+
+from acquire import __version__
+from acquire.errors import InputError
+from acquire.store import atomic_write_text
+
+LIBRARIES = ("numpy", "pandas", "pint", "pydantic", "pyvisa", "pyvisa-sim", "pyvisa-py", "scipy")
+
+
+def sha256_text(text: str) -> str:
+    return hashlib.sha256(text.encode("utf-8")).hexdigest()
+
+
+def software_versions() -> dict[str, str]:
+    versions = {"flipsweep": __version__, "python": sys.version.split()[0]}
+    for name in LIBRARIES:
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            versions[name] = "not installed"
+    return versions
+
+
+def utc_now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+@dataclass(frozen=True)
+class RunFolder:
+    path: Path
+
+    @property
+    def readings(self) -> Path:
+        return self.path / "readings.csv"
+
+    @property
+    def points(self) -> Path:
+        return self.path / "points.csv"
+
+    @property
+    def run_json(self) -> Path:
+        return self.path / "run.json"
+
+    @property
+    def status_json(self) -> Path:
+        return self.path / "status.json"
+
+    @property
+    def log(self) -> Path:
+        return self.path / "run.log"
+
+    def prepare_new(self, needed_bytes: int) -> None:
+        """Refuse before any instrument is touched if the folder is unusable."""
+        if self.path.exists() and any(self.path.iterdir()):
+            raise InputError(
+                "the output folder is not empty", file=str(self.path), key=("--out",),
+                fix="give a new folder, or use 'flipsweep resume' to continue a run there",
+            )
+        try:
+            self.path.mkdir(parents=True, exist_ok=True)
+            probe = self.path / ".write-test"
+            probe.write_text("ok", encoding="utf-8")
+            probe.unlink()
+        except OSError as error:
+            raise InputError(
+                f"the output folder cannot be written ({error.strerror})", file=str(self.path),
+                key=("--out",), fix="choose a folder you can write to",
+            ) from None
+        self.check_space(needed_bytes)
+
+    def check_space(self, needed_bytes: int) -> None:
+        free = shutil.disk_usage(self.path).free
+        # Twice the estimate: reduction, fits and figures write beside the readings.
+        if free < 2 * needed_bytes:
+            raise InputError(
+                f"only {free / 1e6:.0f} MB free, the run needs about {2 * needed_bytes / 1e6:.0f} MB",
+                file=str(self.path), key=("--out",), fix="free space or choose another disk",
+            )
+
+    def read_run_json(self) -> dict[str, Any]:
+        try:
+            return json.loads(self.run_json.read_text(encoding="utf-8"))
+        except FileNotFoundError:
+            raise InputError(
+                "has no run.json, so it is not a flipsweep run folder", file=str(self.path),
+                fix="give the folder a run was started in",
+            ) from None
+        except json.JSONDecodeError as error:
+            raise InputError(f"run.json is damaged ({error.msg})", file=str(self.run_json)) from None
+
+    def write_run_json(self, document: dict[str, Any]) -> None:
+        atomic_write_text(self.run_json, json.dumps(document, indent=2, default=str) + "\n")
+
+    def write_status(self, status: dict[str, Any]) -> None:
+        status = {**status, "updated_utc": utc_now(), "pid": os.getpid(),
+                  "host": socket.gethostname()}
+        atomic_write_text(self.status_json, json.dumps(status, indent=2) + "\n")
+
+    def read_status(self) -> dict[str, Any] | None:
+        try:
+            return json.loads(self.status_json.read_text(encoding="utf-8"))
+        except (FileNotFoundError, json.JSONDecodeError):
+            return None
+
+
+def host_description() -> dict[str, str]:
+    return {"host": socket.gethostname(), "platform": platform.platform(),
+            "user": os.environ.get("USER", "")}
+
+
+def attach_log(folder: RunFolder) -> logging.Handler:
+    handler = logging.FileHandler(folder.log, encoding="utf-8")
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+    logger = logging.getLogger("flipsweep")
+    logger.setLevel(logging.INFO)
+    logger.addHandler(handler)
+    return handler
+
+
+def detach_log(handler: logging.Handler) -> None:
+    logging.getLogger("flipsweep").removeHandler(handler)
+    handler.close()

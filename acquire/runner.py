@@ -1,0 +1,365 @@
+"""The runner: the one place that touches instruments, sleeps, retries and decides on failure."""
+
+from __future__ import annotations
+
+import contextlib
+import dataclasses
+import logging
+from collections.abc import Callable, Iterator
+from dataclasses import dataclass
+from typing import Any
+
+import numpy as np
+
+from acquire.clock import Clock
+from acquire.load import LoadedProtocol, LoadedRig
+from acquire.reduction import BlockResult, reduce_blocks
+from acquire.rig import DEFAULT_BACKLASH, DEFAULT_NPLC
+from acquire.sample_geometry import SampleGeometry
+from acquire.schedule import Measure, Move, Point, Step, iterate_steps, plans_from
+from acquire.store import AppendTable
+from acquire.waits import StabilityWait, WaitTimeout, approach_targets
+from drivers.interface import CommunicationError, InstrumentError
+
+log = logging.getLogger("flipsweep")
+
+RETRY_BACKOFF_S = (1.0, 4.0, 15.0)  # transient faults: wait, reconnect, measure again
+
+
+class PointProblem(Exception):
+    """A point that the protocol's on_problem policy must decide about."""
+
+    def __init__(self, kind: str, message: str) -> None:
+        self.kind = kind
+        super().__init__(message)
+
+
+class StopRun(Exception):
+    """The run cannot go on; the session performs the safe shutdown."""
+
+
+@dataclass
+class PointOutcome:
+    point: Point
+    result: BlockResult | None
+    flags: str
+    skipped: bool = False
+
+
+@dataclass
+class Instruments:
+    source: Any
+    voltmeters: dict[str, Any]
+    field: Any | None = None
+    rotator: Any | None = None
+    temperature: Any | None = None
+    names: dict[str, str] = dataclasses.field(default_factory=dict)  # role -> rig name
+
+    @classmethod
+    def from_opened(
+        cls, rig: LoadedRig, opened: dict[str, Any], channels: list[str]
+    ) -> Instruments:
+        def one(role: str) -> Any | None:
+            entry = rig.rig.one(role)
+            return opened[entry[0]] if entry else None
+
+        names = {role: entry[0] for role in ("current_source", "field", "rotator", "temperature")
+                 if (entry := rig.rig.one(role))}
+        return cls(
+            source=one("current_source"),
+            voltmeters={name: opened[name] for name in channels},
+            field=one("field"),
+            rotator=one("rotator"),
+            temperature=one("temperature"),
+            names=names,
+        )
+
+    def all(self) -> Iterator[Any]:
+        yield self.source
+        yield from self.voltmeters.values()
+        for extra in (self.field, self.rotator, self.temperature):
+            if extra is not None:
+                yield extra
+
+
+class Runner:
+    def __init__(
+        self,
+        loaded: LoadedProtocol,
+        rig: LoadedRig,
+        instruments: Instruments,
+        clock: Clock,
+        readings: AppendTable,
+        points: AppendTable,
+        on_point: Callable[[PointOutcome], None] = lambda outcome: None,
+        heartbeat: Callable[[], None] = lambda: None,
+    ) -> None:
+        self.protocol = loaded.protocol
+        self.loaded = loaded
+        self.rig = rig
+        self.instruments = instruments
+        self.clock = clock
+        self.readings = readings
+        self.points = points
+        self.on_point = on_point
+        self.waiter = StabilityWait(clock, heartbeat)
+        self.channels = list(self.protocol.readings.channels)
+        self.polarities = self.protocol.alternation.polarities
+        self.density_per_ampere = SampleGeometry.from_sample(
+            self.protocol.sample
+        ).carrier_density_per_ampere
+        self.angle_now: float | None = None
+        self.setpoints: dict[str, float | None] = {"temperature": None, "field": None,
+                                                    "angle": None}
+        self.used_axes = {loop.axis for loop in self.protocol.loops}
+        self.flags_pending: set[str] = set()
+
+    # -- configuration ------------------------------------------------------------------
+    def configure(self) -> None:
+        spec_of = self.rig.rig.instruments
+        source_name = self.instruments.names["current_source"]
+        self.instruments.source.configure(spec_of[source_name].compliance)
+        self.instruments.source.set_current(0.0)
+        for name, meter in self.instruments.voltmeters.items():
+            spec = spec_of[name]
+            range_V = None if spec.range in (None, "auto") else float(spec.range)
+            meter.configure(spec.nplc or DEFAULT_NPLC, range_V, bool(spec.autozero))
+        if self.instruments.field is not None:
+            spec = spec_of[self.instruments.names["field"]]
+            self.instruments.field.configure(spec.ramp_rate or spec.limits.ramp_rate)
+        if self.instruments.rotator is not None:
+            spec = spec_of[self.instruments.names["rotator"]]
+            if spec.speed:
+                self.instruments.rotator.configure(spec.speed)
+            self.angle_now = self.instruments.rotator.position()
+        for instrument in self.instruments.all():
+            problems = instrument.errors()
+            if problems:
+                raise StopRun(f"{instrument.name} reported after configuration: {problems[0]}")
+        self.instruments.source.set_output(True)
+
+    # -- moves --------------------------------------------------------------------------
+    def move(self, step: Move) -> None:
+        waits = self.protocol.waits
+        if step.axis == "field":
+            magnet = self.instruments.field
+            magnet.set_target(step.value)
+            self.waiter.until_stable(
+                "field", magnet.field, step.value, waits.field.tolerance, waits.field.hold,
+                waits.field.timeout,
+            )
+        elif step.axis == "temperature":
+            cryostat = self.instruments.temperature
+            cryostat.set_setpoint(step.value)
+            self.waiter.until_stable(
+                "temperature", cryostat.temperature, step.value, waits.temperature.tolerance,
+                waits.temperature.hold, waits.temperature.timeout,
+            )
+        elif step.axis == "angle":
+            self._rotate(step.value)
+        self.setpoints[step.axis] = step.value
+
+    def _rotate(self, target: float) -> None:
+        rotator = self.instruments.rotator
+        spec = self.rig.rig.instruments[self.instruments.names["rotator"]]
+        backlash = spec.backlash if spec.backlash is not None else DEFAULT_BACKLASH
+        positive = (spec.approach or "positive") == "positive"
+        wait = self.protocol.waits.angle
+        for leg in approach_targets(self.angle_now, target, backlash, positive):
+            rotator.move_to(leg)
+            self.waiter.until_false("angle", rotator.moving, wait.timeout, leg)
+            self.angle_now = leg
+        position = rotator.position()
+        if abs(position - target) > wait.tolerance:
+            raise WaitTimeout("angle", target, position, wait.timeout)
+        self.clock.sleep(wait.settle)
+
+    # -- one point ----------------------------------------------------------------------
+    def _readbacks(self) -> tuple[float | None, float | None, float | None]:
+        field = self.instruments.field.field() if self.instruments.field is not None else None
+        angle = self.instruments.rotator.position() if self.instruments.rotator else None
+        temperature = (
+            self.instruments.temperature.temperature() if self.instruments.temperature else None
+        )
+        return temperature, field, angle
+
+    def measure(self, point: Point, attempt: int, flags: str) -> np.ndarray:
+        alternation = self.protocol.alternation
+        per_step = self.protocol.readings.per_step
+        source = self.instruments.source
+        meters = [self.instruments.voltmeters[name] for name in self.channels]
+        voltages = np.empty((len(self.channels), alternation.cycles, len(self.polarities),
+                             per_step))
+        setpoint_temperature = point.temperature_K if "temperature" in self.used_axes else None
+        setpoint_field = point.field_T if "field" in self.used_axes else None
+        setpoint_angle = point.angle_deg if "angle" in self.used_axes else None
+        rows = []
+        for cycle in range(alternation.cycles):
+            for step_index, polarity in enumerate(self.polarities):
+                current = polarity * point.current_A
+                # Zero current between polarities, never output-off: the output relay does not
+                # switch at every step (common practice).
+                source.set_current(current)
+                self.clock.sleep(alternation.settle)
+                temperature_read, field_read, angle_read = self._readbacks()
+                for repeat in range(per_step):
+                    for channel_index, meter in enumerate(meters):
+                        voltage = meter.read()
+                        voltages[channel_index, cycle, step_index, repeat] = voltage
+                        rows.append((
+                            point.number, attempt, cycle, step_index, repeat,
+                            round(self.clock.now(), 6), self.clock.utc().isoformat(),
+                            setpoint_temperature, setpoint_field, setpoint_angle, current,
+                            polarity, self.channels[channel_index], voltage, temperature_read,
+                            field_read, angle_read, flags,
+                        ))
+        source.set_current(0.0)
+        self.readings.extend(rows)
+        return voltages
+
+    def check_point(self) -> None:
+        if self.instruments.source.compliance_tripped():
+            raise PointProblem("compliance", "the current source hit its compliance voltage")
+        for instrument in (self.instruments.source, *self.instruments.voltmeters.values()):
+            problems = instrument.errors()
+            if problems:
+                raise PointProblem("instrument_error", f"{instrument.name}: {problems[0]}")
+
+    def measure_with_policy(self, point: Point) -> PointOutcome:
+        policy = self.protocol.on_problem
+        attempt = 0
+        flags: list[str] = sorted(self.flags_pending)
+        self.flags_pending.clear()
+        transient_failures = 0
+        while True:
+            try:
+                voltages = self.measure(point, attempt, "|".join(flags))
+                self.check_point()
+            except CommunicationError as error:
+                transient_failures += 1
+                if transient_failures > len(RETRY_BACKOFF_S):
+                    raise StopRun(f"persistent communication fault: {error}") from error
+                log.warning("point %d: %s; retry %d after reconnect", point.number, error,
+                            transient_failures)
+                self._recover(RETRY_BACKOFF_S[transient_failures - 1])
+                attempt += 1
+                flags = sorted({*flags, "retry"})
+                continue
+            except PointProblem as problem:
+                action = getattr(policy, problem.kind)
+                log.warning("point %d: %s (policy: %s)", point.number, problem, action)
+                flags = sorted({*flags, problem.kind})
+                if action == "stop":
+                    raise StopRun(f"point {point.number}: {problem}") from problem
+                if action == "skip":
+                    self.readings.commit()
+                    return PointOutcome(point, None, "|".join(flags), skipped=True)
+                if action == "retry" and attempt < policy.retries:
+                    attempt += 1
+                    flags = sorted({*flags, "retry"})
+                    continue
+                # "flag", or retries used up: keep the data, flagged.
+                self._clear_errors()
+                result = self._reduce(point, voltages)
+                return PointOutcome(point, result, "|".join(flags))
+            result = self._reduce(point, voltages)
+            return PointOutcome(point, result, "|".join(flags))
+
+    def _recover(self, backoff_s: float) -> None:
+        self.clock.sleep(backoff_s)
+        for instrument in self.instruments.all():
+            try:
+                instrument.reconnect()
+            except CommunicationError as error:
+                log.warning("reconnect of %s failed: %s", instrument.name, error)
+
+    def _clear_errors(self) -> None:
+        for instrument in self.instruments.all():
+            with contextlib.suppress(InstrumentError, CommunicationError):
+                instrument.errors()
+
+    def _reduce(self, point: Point, voltages: np.ndarray) -> BlockResult:
+        amplitude = np.full(len(self.channels), point.current_A)
+        return reduce_blocks(voltages, self.protocol.alternation.pattern, amplitude)
+
+    def point_rows(self, outcome: PointOutcome) -> list[tuple[object, ...]]:
+        point, result = outcome.point, outcome.result
+        if result is None:
+            return []
+        used = self.used_axes
+        rows = []
+        for index, channel in enumerate(self.channels):
+            rows.append((
+                point.number,
+                point.temperature_K if "temperature" in used else None,
+                point.field_T if "field" in used else None,
+                point.angle_deg if "angle" in used else None,
+                point.current_A,
+                point.current_A * self.density_per_ampere,
+                channel, result.n_cycles,
+                *(float(getattr(result, name)[index]) for name in (
+                    "resistance_ohm", "resistance_ohm_err", "unidirectional_ohm",
+                    "unidirectional_ohm_err", "unidirectional_ratio", "unidirectional_ratio_err",
+                    "offset_V", "offset_V_err")),
+                outcome.flags,
+            ))
+        return rows
+
+    # -- the night ----------------------------------------------------------------------
+    def steps(self, start_point: int) -> Iterator[Step]:
+        plans = plans_from(self.protocol, self.loaded.loop_values)
+        return iterate_steps(plans, start_point)
+
+    def run(self, start_point: int = 0) -> None:
+        skip_until_move: set[str] = set()
+        pending_skip = False
+        for step in self.steps(start_point):
+            if isinstance(step, Move):
+                try:
+                    self.move(step)
+                    pending_skip = False
+                except WaitTimeout as timeout:
+                    action = self.protocol.on_problem.wait_timeout
+                    log.warning("%s (policy: %s)", timeout, action)
+                    if action == "stop":
+                        raise StopRun(str(timeout)) from timeout
+                    if action == "skip":
+                        pending_skip = True
+                    else:
+                        self.flags_pending.add("wait_timeout")
+                    skip_until_move.add(step.axis)
+                continue
+            assert isinstance(step, Measure)
+            if pending_skip:
+                outcome = PointOutcome(step.point, None, "wait_timeout", skipped=True)
+            else:
+                outcome = self.measure_with_policy(step.point)
+            self.points.extend(self.point_rows(outcome))
+            self.readings.commit()
+            self.points.commit()
+            self.on_point(outcome)
+
+    def shutdown(self) -> list[str]:
+        """The safe state: current to zero and output off first, then field, then temperature.
+
+        Every call is attempted even if an earlier one fails; failures are returned for the log.
+        """
+        problems: list[str] = []
+
+        def attempt(what: str, action: Callable[[], object]) -> None:
+            try:
+                action()
+            except Exception as error:  # the instrument may be gone; keep making the rest safe
+                problems.append(f"{what}: {error}")
+
+        source = self.instruments.source
+        attempt("current to zero", lambda: source.set_current(0.0))
+        attempt("output off", lambda: source.set_output(False))
+        finish = self.protocol.finish
+        if finish.field == "zero" and self.instruments.field is not None:
+            attempt("field to zero", lambda: self.instruments.field.set_target(0.0))
+        if finish.temperature != "hold" and self.instruments.temperature is not None:
+            target = float(finish.temperature)
+            attempt("temperature setpoint", lambda: self.instruments.temperature.set_setpoint(
+                target))
+        return problems
