@@ -351,9 +351,22 @@ def angle_fits(points: pd.DataFrame, context: RunContext, apply_offset: bool) ->
         )
     )  # fmt: skip
     named, amplitudes = _named_amplitudes(keys, kinds, resistance, unidirectional, context)
+    amplitudes["current_density_A_m2"] = _group_mean(
+        ids, swept["current_density_A_m2"].to_numpy(float), len(keys)
+    )
     frames.extend(named)
     rows = pd.concat([frame for frame in frames if not frame.empty], ignore_index=True)
     return AngleResult(rows, amplitudes)
+
+
+def _group_mean(ids: NDArray[np.int64], values: NDArray[np.float64], n_groups: int) -> NDArray[np.float64]:
+    """Mean of each group's values; NaN if any value of the group is missing."""
+    member = ids >= 0
+    total = np.bincount(ids[member], weights=np.nan_to_num(values[member]), minlength=n_groups)
+    count = np.bincount(ids[member], minlength=n_groups)
+    missing = np.bincount(ids[member], weights=~np.isfinite(values[member]), minlength=n_groups)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        return np.where((missing == 0) & (count > 0), total / count, np.nan)
 
 
 def _fit_quantity(
@@ -418,6 +431,7 @@ def _named_amplitudes(
     amplitudes = keys.copy()
     amplitudes["kind"] = kinds
     amplitudes["resistance_c0"] = c0
+    amplitudes["resistance_c0_err"] = c0_err
 
     def add(mask: NDArray[np.bool_], quantity: str, value: Any, error: Any, unit: str,
             fit: GroupedLinearFit, model: str, note: str = "") -> None:  # fmt: skip
@@ -640,67 +654,58 @@ def _linearity_onset(
     return onset, notes
 
 
-# --- field -----------------------------------------------------------------------------------
+# --- field ---------------------------------------------------------------------------------
+
+FIELD_KEYS = ("temperature_K", "angle_deg", "current_A", "channel")
+FIELD_QUANTITIES = {
+    "independent": ("umr_field_independent_ohm", "ohm"),
+    "dependent": ("umr_field_dependent_ohm", "ohm"),
+    "slope": ("umr_field_slope_ohm_per_T", "ohm/T"),
+    "scale_T": ("umr_field_scale_T", "T"),
+}
 
 
-def field_fits(
-    points: pd.DataFrame, amplitudes: pd.DataFrame, form: str
-) -> pd.DataFrame:
-    """UMR against |field|: from angle-fit amplitudes when there are any, else from points.
+def field_fits(source: AnalysisSource, form: str) -> pd.DataFrame:
+    """UMR against |field| per (T, angle, current, channel) with >= 3 fields.
 
-    Positive and negative fields are fitted separately (the UMR changes sign with m).
+    Positive and negative fields are fitted separately (the UMR changes sign with m). The
+    non-linear form is fitted group by group; there are few field groups in any run.
     """
     if form not in FIELD_FORMS:
         raise ValueError(f"unknown field form {form!r}; choose one of {sorted(FIELD_FORMS)}")
-    if "umr_ohm" in amplitudes and np.isfinite(amplitudes["umr_ohm"].to_numpy(float)).any():
-        source = amplitudes[np.isfinite(amplitudes["umr_ohm"].to_numpy(float))]
-        keys = ("temperature_K", "current_A", "channel")
-        value_column, error_column = "umr_ohm", "umr_ohm_err"
-        origin = "umr_ohm amplitudes of the angle fits"
-    else:
-        source = points
-        keys = ("temperature_K", "angle_deg", "current_A", "channel")
-        value_column, error_column = "unidirectional_ohm", "unidirectional_ohm_err"
-        origin = "unidirectional_ohm at fixed angle"
-    field_values = source["field_T"].to_numpy(float)
-    source = source[np.isfinite(field_values)].assign(
-        field_branch=np.where(field_values[np.isfinite(field_values)] < 0, -1, 1)
+    field_values = source.frame["field_T"].to_numpy(float)
+    has_field = np.isfinite(field_values)
+    frame = source.frame[has_field].assign(
+        field_branch=np.where(field_values[has_field] < 0, -1, 1)
     )
-    ids, key_frame = group_ids(source, (*keys, "field_branch"))
-    n_fields = distinct_per_group(ids, source["field_T"].to_numpy(float), len(key_frame))
+    ids, key_frame = group_ids(frame, (*FIELD_KEYS, "field_branch"))
+    n_fields = distinct_per_group(ids, frame["field_T"].to_numpy(float), len(key_frame))
+    order = np.argsort(ids, kind="stable")
+    bounds = np.searchsorted(ids[order], np.arange(len(key_frame) + 1))
+    field_T = frame["field_T"].to_numpy(float)
+    values = frame["unidirectional_ohm"].to_numpy(float)
+    errors = frame["unidirectional_ohm_err"].to_numpy(float)
     frames: list[pd.DataFrame] = []
     for group in np.flatnonzero(n_fields >= MIN_FIELDS):
-        members = source[ids == group]
-        fit = fit_field_dependence(
-            members["field_T"], members[value_column], members[error_column], form
-        )
+        rows = order[bounds[group] : bounds[group + 1]]
+        fit = fit_field_dependence(field_T[rows], values[rows], errors[rows], form)
         used_form = form
-        note_parts = [origin]
+        notes = [f"from {source.origin}"]
         if form == "inverse" and fit.note == "needs >= 4 points":
-            fit = fit_field_dependence(
-                members["field_T"], members[value_column], members[error_column], "linear"
-            )
+            fit = fit_field_dependence(field_T[rows], values[rows], errors[rows], "linear")
             used_form = "linear"
-            note_parts.append("inverse form needs >= 4 fields: linear form used")
+            notes.append("inverse form needs >= 4 fields: linear form used")
         if key_frame["field_branch"].iloc[group] < 0:
-            note_parts.append("negative fields, fitted against |B|")
+            notes.append("negative fields, fitted against |B|")
         if not fit.weighted:
-            note_parts.append("unweighted: errors from the residual scatter")
-        if fit.note:
-            note_parts.append(fit.note)
-        group_keys = key_frame.iloc[[group]][list(keys)].reset_index(drop=True)
-        units = {"independent": "ohm", "dependent": "ohm", "slope": "ohm/T", "scale_T": "T"}
-        names = {
-            "independent": "umr_field_independent_ohm",
-            "dependent": "umr_field_dependent_ohm",
-            "slope": "umr_field_slope_ohm_per_T",
-            "scale_T": "umr_field_scale_T",
-        }
+            notes.append("unweighted: errors from the residual scatter")
+        notes.append(fit.note)
+        group_keys = key_frame.iloc[[group]][list(FIELD_KEYS)].reset_index(drop=True)
         for name, value, error in zip(fit.names, fit.values, fit.errors):
+            quantity, unit = FIELD_QUANTITIES[name]
             frames.append(
-                tidy_rows(group_keys, "field", names[name], value, error, units[name],
-                          fit.reduced_chi2, fit.n_points, FIELD_FORMS[used_form],
-                          "; ".join(note_parts))
+                tidy_rows(group_keys, "field", quantity, value, error, unit, fit.reduced_chi2,
+                          fit.n_points, FIELD_FORMS[used_form], _join_notes(*notes))
             )  # fmt: skip
     if not frames:
         return empty_fits_table()
@@ -716,9 +721,14 @@ TEMPERATURE_QUANTITIES = (
 SLOPE_KEYS = ("field_T", "angle_deg", "channel")
 
 
-def temperature_fits(points: pd.DataFrame, angle_rows: pd.DataFrame) -> pd.DataFrame:
+def temperature_fits(
+    angle_rows: pd.DataFrame, source: AnalysisSource, context: RunContext
+) -> pd.DataFrame:
     """Angle-fit amplitudes gathered per temperature, and the local dR/dT."""
-    frames = [_amplitudes_by_temperature(angle_rows), _resistance_slopes(points)]
+    frames = [
+        _amplitudes_by_temperature(angle_rows),
+        _resistance_slopes(longitudinal_only(source.frame, context), source.origin),
+    ]
     frames = [frame for frame in frames if not frame.empty]
     return pd.concat(frames, ignore_index=True) if frames else empty_fits_table()
 
@@ -729,19 +739,18 @@ def _amplitudes_by_temperature(angle_rows: pd.DataFrame) -> pd.DataFrame:
     rows = angle_rows[angle_rows["quantity"].isin(TEMPERATURE_QUANTITIES)].copy()
     if rows.empty:
         return empty_fits_table()
-    ids, _ = group_ids(rows, ("field_T", "current_A", "channel", "quantity"))
-    n_temperatures = distinct_per_group(ids, rows["temperature_K"].to_numpy(float), ids.max() + 1)
+    ids, keys = group_ids(rows, ("field_T", "current_A", "channel", "quantity"))
+    n_temperatures = distinct_per_group(ids, rows["temperature_K"].to_numpy(float), len(keys))
     rows = rows[n_temperatures[ids] >= 2]
     rows["analysis"] = "temperature"
-    rows["note"] = [f"from the angle fit; {note}" if note else "from the angle fit"
-                    for note in rows["note"]]  # fmt: skip
+    rows["note"] = [_join_notes("from the angle fit", note) for note in rows["note"]]
     return rows.reset_index(drop=True)
 
 
-def _resistance_slopes(points: pd.DataFrame) -> pd.DataFrame:
+def _resistance_slopes(frame: pd.DataFrame, origin: str) -> pd.DataFrame:
     """dR/dT of the lowest-current resistance, local: fitted over each temperature and its
     neighbours in the sorted list of temperatures (one-sided at the ends)."""
-    usable = points[np.isfinite(points["temperature_K"].to_numpy(float))]
+    usable = frame[np.isfinite(frame["temperature_K"].to_numpy(float))]
     if usable.empty:
         return empty_fits_table()
     current = usable["current_A"].to_numpy(float)
@@ -751,26 +760,26 @@ def _resistance_slopes(points: pd.DataFrame) -> pd.DataFrame:
     usable = usable[at_lowest].reset_index(drop=True)
     outer_ids, outer_keys = group_ids(usable, SLOPE_KEYS)
     temperature = usable["temperature_K"].to_numpy(float)
-    rank = (
-        pd.Series(temperature).groupby(outer_ids).rank(method="dense").to_numpy().astype(np.int64) - 1
-    )
+    rank = pd.Series(temperature).groupby(outer_ids).rank(method="dense").to_numpy()
+    rank = rank.astype(np.int64) - 1
     n_temperatures = distinct_per_group(outer_ids, temperature, len(outer_keys))
     if n_temperatures.max(initial=0) < 2:
         return empty_fits_table()
 
-    # Each point serves the windows centred on its own temperature and its two neighbours.
+    # Each point serves the windows centred on its own temperature and on its two neighbours.
     copies = []
+    n_of_row = n_temperatures[outer_ids]
     for shift in (-1, 0, 1):
         centre = rank + shift
-        inside = (centre >= 0) & (centre < n_temperatures[outer_ids]) & (n_temperatures[outer_ids] >= 2)
+        inside = (centre >= 0) & (centre < n_of_row) & (n_of_row >= 2)
         copies.append(pd.DataFrame({"outer": outer_ids[inside], "centre": centre[inside],
                                     "row": np.flatnonzero(inside)}))  # fmt: skip
     windows = pd.concat(copies, ignore_index=True)
     window_ids, window_keys = group_ids(windows, ("outer", "centre"))
     rows = windows["row"].to_numpy()
     centre_rows = usable.assign(outer=outer_ids, centre=rank).drop_duplicates(["outer", "centre"])
-    centre_temperature = window_keys.merge(centre_rows, on=["outer", "centre"], how="left")
-    t_centre = centre_temperature["temperature_K"].to_numpy(float)
+    centres = window_keys.merge(centre_rows, on=["outer", "centre"], how="left")
+    t_centre = centres["temperature_K"].to_numpy(float)
     dt = temperature[rows] - t_centre[window_ids]
     fit = fit_linear_by_group(
         np.column_stack([np.ones_like(dt), dt]),
@@ -779,11 +788,12 @@ def _resistance_slopes(points: pd.DataFrame) -> pd.DataFrame:
         window_ids,
         len(window_keys),
     )
-    keys = centre_temperature[["temperature_K", "current_A", *SLOPE_KEYS]]
+    keys = centres[["temperature_K", "current_A", *SLOPE_KEYS]]
+    notes = [_join_notes("lowest current", f"from {origin}", note) for note in _fit_note(fit)]
     return tidy_rows(
         keys, "temperature", "dR_dT_ohm_per_K", fit.coefficients[:, 1], fit.errors[:, 1],
-        "ohm/K", fit.reduced_chi2, fit.n_points, "R = R(T0) + dR/dT*(T - T0), T0 and neighbours",
-        np.char.add("lowest current; ", _fit_note(fit).astype(str)).astype(object),
+        "ohm/K", fit.reduced_chi2, fit.n_points,
+        "R = R(T0) + dR/dT*(T - T0), over T0 and its neighbours", np.array(notes, dtype=object),
     )  # fmt: skip
 
 
@@ -793,10 +803,11 @@ HEATING_KEYS = ("temperature_K", "field_T", "angle_deg", "channel")
 
 
 def heating_fits(
-    points: pd.DataFrame, slopes: pd.DataFrame, options: FitOptions
+    source: AnalysisSource, slopes: pd.DataFrame, context: RunContext, options: FitOptions
 ) -> pd.DataFrame:
-    """Joule heating: R = R0 + h I^2, and the temperature rise h I^2 / (dR/dT)."""
-    usable = points[np.isfinite(points["current_A"].to_numpy(float))]
+    """Joule heating of the longitudinal channels: R = R0 + h I^2, rise = h I^2 / (dR/dT)."""
+    frame = longitudinal_only(source.frame, context)
+    usable = frame[np.isfinite(frame["current_A"].to_numpy(float))]
     ids, keys = group_ids(usable, HEATING_KEYS)
     current_mA = usable["current_A"].to_numpy(float) * 1e3
     n_currents = distinct_per_group(ids, current_mA, len(keys))
@@ -817,37 +828,46 @@ def heating_fits(
     if options.dR_dT_ohm_per_K is not None:
         dr_dt = np.full(len(keys), float(options.dR_dT_ohm_per_K))
         dr_dt_err = np.zeros(len(keys))
-        source = "dR/dT given by the user"
+        dr_dt_source = "dR/dT given by the user"
     else:
-        lookup = slopes[slopes["quantity"] == "dR_dT_ohm_per_K"]
-        matched = keys.merge(
-            lookup[["temperature_K", *SLOPE_KEYS, "value", "error"]],
-            on=["temperature_K", *SLOPE_KEYS], how="left",
-        ).drop_duplicates(list(HEATING_KEYS))  # fmt: skip
+        lookup = slopes.loc[
+            slopes["quantity"] == "dR_dT_ohm_per_K", ["temperature_K", *SLOPE_KEYS, "value", "error"]
+        ]
+        matched = keys.merge(lookup, on=["temperature_K", *SLOPE_KEYS], how="left")
+        matched = matched.drop_duplicates(list(HEATING_KEYS))
         dr_dt = matched["value"].to_numpy(float)
-        dr_dt_err = matched["error"].to_numpy(float)
-        source = "dR/dT from this run's temperature series"
-    rise, rise_err = ratio_with_error(slope, slope_err, dr_dt, np.nan_to_num(dr_dt_err))
+        dr_dt_err = np.nan_to_num(matched["error"].to_numpy(float))
+        dr_dt_source = "dR/dT from this run's temperature series"
+    rise, rise_err = ratio_with_error(slope, slope_err, dr_dt, dr_dt_err)
     at_max, at_max_err = rise * largest**2, rise_err * largest**2
 
-    no_slope = ~np.isfinite(dr_dt)
-    rise_note = np.where(no_slope, "no dR/dT in this run: pass dR_dT_ohm_per_K", source)
-    warn = np.isfinite(at_max) & (at_max > options.heating_warn_K)
-    max_note = np.char.add(
-        np.where(warn, f"WARNING: above {options.heating_warn_K:g} K; ", ""),
-        np.char.add(np.char.mod("at %.4g mA; ", largest), rise_note),
-    )
+    rise_notes = [
+        _join_notes(f"from {source.origin}", dr_dt_source if np.isfinite(value) else
+                    "no dR/dT in this run: pass dR_dT_ohm_per_K")
+        for value in dr_dt
+    ]  # fmt: skip
+    max_notes = [
+        _join_notes(
+            f"WARNING: above {options.heating_warn_K:g} K" if rise_K > options.heating_warn_K else "",
+            f"at {current:.4g} mA",
+            note,
+        )
+        for rise_K, current, note in zip(np.nan_to_num(at_max, nan=-np.inf), largest, rise_notes)
+    ]
     model = "R = R0 + h*I^2"
+    rise_model = f"{model}; rise = h*I^2/(dR/dT)"
     return pd.concat(
         [
             tidy_rows(keys, "heating", "heating_slope_ohm_per_mA2", slope, slope_err,
-                      "ohm/mA^2", fit.reduced_chi2, fit.n_points, model, _fit_note(fit)),
+                      "ohm/mA^2", fit.reduced_chi2, fit.n_points, model,
+                      np.array([_join_notes(f"from {source.origin}", note)
+                                for note in _fit_note(fit)], dtype=object)),
             tidy_rows(keys, "heating", "temperature_rise_K_per_mA2", rise, rise_err,
-                      "K/mA^2", fit.reduced_chi2, fit.n_points, f"{model}; dT = h*I^2/(dR/dT)",
-                      rise_note.astype(object)),
+                      "K/mA^2", fit.reduced_chi2, fit.n_points, rise_model,
+                      np.array(rise_notes, dtype=object)),
             tidy_rows(keys, "heating", "temperature_rise_at_max_current_K", at_max, at_max_err,
-                      "K", fit.reduced_chi2, fit.n_points, f"{model}; dT = h*I^2/(dR/dT)",
-                      max_note.astype(object)),
+                      "K", fit.reduced_chi2, fit.n_points, rise_model,
+                      np.array(max_notes, dtype=object)),
         ],
         ignore_index=True,
     )  # fmt: skip
@@ -857,18 +877,20 @@ def heating_fits(
 
 
 def build_fits_table(
-    points: pd.DataFrame, context: RunContext, options: FitOptions = FitOptions()
+    points: pd.DataFrame, context: RunContext, options: FitOptions | None = None
 ) -> pd.DataFrame:
     """Every analysis the data support, as one tidy table (columns FIT_COLUMN_NAMES)."""
+    options = options or FitOptions()
     points = normalise_points(points)
     angle = angle_fits(points, context, options.angle_offset)
-    temperature = temperature_fits(points, angle.rows)
+    source = analysis_source(points, angle.amplitudes, context)
+    temperature = temperature_fits(angle.rows, source, context)
     frames = [
         angle.rows,
-        current_fits(points, context),
-        field_fits(points, angle.amplitudes, options.field_form),
+        current_fits(source, context),
+        field_fits(source, options.field_form),
         temperature,
-        heating_fits(points, temperature, options),
+        heating_fits(source, temperature, context, options),
     ]
     frames = [frame for frame in frames if not frame.empty]
     if not frames:

@@ -11,6 +11,7 @@ import dataclasses
 import math
 from collections.abc import Sequence
 from dataclasses import dataclass
+from typing import Any
 
 import numpy as np
 
@@ -126,8 +127,8 @@ class SampleParameters:
     anomalous_hall_ohm: float = 1.5  # R_xy at m = +z
     transverse_misalignment_fraction: float = 1e-3  # share of R_xx seen by the Hall pair
     # Unidirectional magnetoresistance, ratio to R0 per unit carrier current density
-    umr_ratio_per_A_m2: float = 1e-17  # field-independent (spin-dependent) part
-    umr_magnon_ratio_per_A_m2: float = 2e-17  # magnon part at T_ref, B -> 0
+    umr_ratio_per_A_m2: float = 2e-17  # field-independent (spin-dependent) part
+    umr_magnon_ratio_per_A_m2: float = 3e-17  # magnon part at T_ref, B -> 0
     umr_magnon_field_T: float = 2.0  # B_m in 1 / (1 + |B| / B_m)
     umr_magnon_T0_K: float = 60.0  # floor of (T + T0) / (T_ref + T0) as T -> 0
     spin_hall_sign: int = -1  # sign of the heavy metal's spin Hall angle (W: -1, Pt: +1)
@@ -179,7 +180,7 @@ class SampleParameters:
             if key not in valid:
                 raise ValueError(f"unknown sample parameter {key!r}; valid: {', '.join(valid)}")
         resistance, fraction, thickness = parallel_resistor(length_m, width_m, layers)
-        values: dict[str, float] = {
+        values: dict[str, Any] = {
             "resistance_ohm": resistance,
             "length_m": length_m,
             "width_m": width_m,
@@ -187,9 +188,10 @@ class SampleParameters:
             "carrier_fraction": fraction,
         }
         values.update(overrides)
-        return cls(**values)  # type: ignore[arg-type]
+        return cls(**values)
 
     def as_dict(self) -> dict[str, float | int | str]:
+        """Every parameter by name: the JSON-ready truth of a simulated run."""
         return dataclasses.asdict(self)
 
     def carrier_current_density(self, current_A: float) -> float:
@@ -299,7 +301,7 @@ class BilayerSample:
 
     # --- odd part --------------------------------------------------------------------
 
-    def umr_ratio_per_A_m2(self, device_K: float) -> float:
+    def umr_zeta_per_A_m2(self, device_K: float) -> float:
         """zeta(B, T): unidirectional resistance over R0 per unit carrier current density."""
         p = self._params
         thermal = (device_K + p.umr_magnon_T0_K) / (p.reference_temperature_K + p.umr_magnon_T0_K)
@@ -314,7 +316,7 @@ class BilayerSample:
             # The Nernst field E ~ grad(T) x m: along y for m along x, over the width.
             return p.thermal_V_per_A2 * (p.width_m / p.length_m) * current_A * mx
         j = p.carrier_current_density(current_A)
-        umr = p.spin_hall_sign * p.resistance_ohm * self.umr_ratio_per_A_m2(device_K) * j * my
+        umr = p.spin_hall_sign * p.resistance_ohm * self.umr_zeta_per_A_m2(device_K) * j * my
         return umr + p.thermal_V_per_A2 * current_A * my
 
     # --- readings --------------------------------------------------------------------

@@ -1,0 +1,37 @@
+"""`flipsweep instruments`: what VISA sees, and who answers *IDN? (read-only, nothing is set)."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+
+def list_instruments(rig_path: Path | None) -> int:
+    from drivers.factory import resource_manager_for
+
+    if rig_path is None:
+        manager = resource_manager_for("@py")
+        for resource in manager.list_resources():
+            print(f"{resource}  {_identity(manager, resource)}")
+        return 0
+    from acquire.load import load_rig
+
+    rig = load_rig(rig_path).rig
+    manager = resource_manager_for(rig.visa_library)
+    for name, spec in rig.instruments.items():
+        print(f"{name:<10} {spec.role:<15} {spec.resource:<28} "
+              f"{_identity(manager, spec.resource, spec.timeout)}")
+    return 0
+
+
+def _identity(manager: object, resource: str, timeout_s: float = 2.0) -> str:
+    try:
+        handle = manager.open_resource(resource)  # type: ignore[attr-defined]
+        handle.timeout = int(timeout_s * 1000)
+        handle.read_termination = "\n"
+        handle.write_termination = "\n"
+        try:
+            return str(handle.query("*IDN?")).strip()
+        finally:
+            handle.close()
+    except Exception as error:  # report and go on: this is a survey, not a run
+        return f"(no answer: {type(error).__name__})"
