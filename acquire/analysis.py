@@ -15,8 +15,10 @@ from acquire.csvw import write_metadata
 from acquire.fit_tables import (
     FIELD_FORMS,
     FIT_COLUMNS,
+    QUANTITY_NOTES,
     FitOptions,
     build_fits_table,
+    read_fits_table,
     read_points,
     read_run_context,
 )
@@ -25,7 +27,8 @@ FITS_DESCRIPTION = (
     "Fits of a flipsweep run: one row per fitted quantity and group (tidy). Key columns "
     "(temperature_K, field_T, current_A, angle_deg, channel) are empty when the quantity is "
     "not tied to that key. analysis is angle, current, field, temperature or heating; value "
-    "and error (one sigma) are in the row's unit; reduced_chi2 is empty for unweighted fits."
+    "and error (one sigma) are in the row's unit; reduced_chi2 is empty for unweighted fits. "
+    "Quantities: " + "; ".join(f"{name}: {meaning}" for name, meaning in QUANTITY_NOTES.items())
 )
 
 
@@ -73,9 +76,7 @@ def report_run(run_dir: Path) -> Path:
     fits_path = run_dir / "fits.csv"
     if not fits_path.exists():
         fit_run(run_dir)
-    fits = pd.read_csv(fits_path)
-    fits["channel"] = fits["channel"].fillna("").astype(str)
-    fits["note"] = fits["note"].fillna("").astype(str)
+    fits = read_fits_table(fits_path)
     points = read_points(run_dir / "points.csv")
     context = read_run_context(run_dir)
     figures = make_figures(run_dir, points, fits, context)

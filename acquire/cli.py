@@ -20,7 +20,7 @@ CAUTION = (
 )
 
 
-def _load_pair(protocol_path: str, rig_path: str | None):  # noqa: ANN202 - tuple of loaded files
+def _load_pair(protocol_path: str, rig_path: str | None):  # returns (LoadedProtocol, LoadedRig)
     from acquire.load import check_pair, load_protocol, load_rig
 
     loaded = load_protocol(Path(protocol_path))
@@ -64,6 +64,15 @@ def cmd_schema(args: argparse.Namespace) -> int:
     for name, model in (("protocol", Protocol), ("rig", Rig)):
         schema = model.model_json_schema(by_alias=True)
         schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
+        # A file may extend a base file (see acquire.yaml_source); its required keys may then
+        # all come from the base, so they are required only of a file without 'extends'.
+        schema["properties"] = {
+            "extends": {"type": "string", "description": "path of a base file, relative to this"},
+            **schema["properties"],
+        }
+        required = schema.pop("required", [])
+        schema["if"] = {"required": ["extends"]}
+        schema["else"] = {"required": required}
         target = out / f"{name}.schema.json"
         target.write_text(json.dumps(schema, indent=2) + "\n", encoding="utf-8")
         print(f"wrote {target}")
@@ -74,7 +83,9 @@ def _add_common(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--debug", action="store_true", help="show Python tracebacks")
 
 
-def build_parser(commands: dict[str, Callable[[argparse.Namespace], int]]) -> argparse.ArgumentParser:
+def build_parser(
+    commands: dict[str, Callable[[argparse.Namespace], int]],
+) -> argparse.ArgumentParser:
     parser = argparse.ArgumentParser(
         prog="flipsweep",
         description="Unattended current-reversal magnetotransport sweeps.",

@@ -40,7 +40,8 @@ class InputError(Exception):
         where = self.file or "input"
         if self.line is not None:
             where += f":{self.line}"
-        key = f" {format_key_path(self.key)}:" if self.key else ""
+        # A located error about the document as a whole still names its key path: the top level.
+        key = f" {format_key_path(self.key)}:" if self.key or self.line is not None else ""
         fix = f" -- fix: {self.fix}" if self.fix else ""
         return f"{where}:{key} {self.problem}{fix}".replace("\n", " ")
 

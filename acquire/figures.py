@@ -82,9 +82,12 @@ def _new_figure(rows: int, columns: int, width: float = 5.2, height: float = 3.4
     import matplotlib.pyplot as plt
 
     figure, axes = plt.subplots(
-        rows, columns, figsize=(width * columns, height * rows), squeeze=False,
+        rows,
+        columns,
+        figsize=(width * columns, height * rows),
+        squeeze=False,
         layout="constrained",
-    )  # fmt: skip
+    )
     for axis in axes.flat:
         axis.grid(True, color="#d9dce1", linewidth=0.6)
         axis.set_axisbelow(True)
@@ -111,9 +114,12 @@ def _pick(frame: pd.DataFrame, limit: int = MAX_SERIES) -> pd.DataFrame:
 def _label(row: pd.Series, keys: tuple[str, ...]) -> str:
     parts = []
     formats = {
-        "temperature_K": ("{:g} K", 1.0), "field_T": ("{:g} T", 1.0),
-        "current_A": ("{:g} mA", 1e3), "angle_deg": ("{:g}°", 1.0), "channel": ("{}", None),
-    }  # fmt: skip
+        "temperature_K": ("{:.4g} K", 1.0),
+        "field_T": ("{:.4g} T", 1.0),
+        "current_A": ("{:.4g} mA", 1e3),
+        "angle_deg": ("{:.4g}°", 1.0),
+        "channel": ("{}", None),
+    }
     for key in keys:
         value = row.get(key)
         template, factor = formats[key]
@@ -177,11 +183,15 @@ def _angle_figure(points: pd.DataFrame, fits: pd.DataFrame, context: RunContext)
                     for term in ("c0", "cos1", "sin1", "cos2", "sin2")
                 ]
                 axis.errorbar(
-                    data["angle_deg"], (data[f"{label}_ohm"] - shift) * factor,
-                    yerr=data[f"{label}_ohm_err"] * factor, fmt="o", markersize=3.5,
-                    color=colour, label=_label(row, ("temperature_K", "field_T", "current_A")),
+                    data["angle_deg"],
+                    (data[f"{label}_ohm"] - shift) * factor,
+                    yerr=data[f"{label}_ohm_err"] * factor,
+                    fmt="o",
+                    markersize=3.5,
+                    color=colour,
+                    label=_label(row, ("temperature_K", "field_T", "current_A")),
                     elinewidth=0.8,
-                )  # fmt: skip
+                )
                 if np.all(np.isfinite(coefficients)):
                     curve = harmonic_curve(fine - offset, coefficients)
                     axis.plot(fine, (curve - shift) * factor, color=colour, linewidth=1.2)
@@ -207,7 +217,9 @@ CURRENT_GROUP_KEYS = ("temperature_K", "field_T", "angle_deg", "channel")
 
 
 def _current_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
-    slopes = fits[(fits["analysis"] == "current") & fits["quantity"].str.startswith("umr_ratio_per")]
+    slopes = fits[
+        (fits["analysis"] == "current") & fits["quantity"].str.startswith("umr_ratio_per")
+    ]
     slopes = slopes[np.isfinite(slopes["value"]) & (slopes["error"] > 0)]
     if slopes.empty:
         return "no group with at least three currents"
@@ -225,14 +237,23 @@ def _current_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
             continue
         largest_x = max(largest_x, float(np.nanmax(x)))
         label = _label(row, ("temperature_K", "field_T", "angle_deg", "channel"))
-        axis.errorbar(x, y * 1e6, yerr=y_err * 1e6, fmt="o", markersize=4, color=colour,
-                      label=label, elinewidth=0.8)  # fmt: skip
+        axis.errorbar(
+            x,
+            y * 1e6,
+            yerr=y_err * 1e6,
+            fmt="o",
+            markersize=4,
+            color=colour,
+            label=label,
+            elinewidth=0.8,
+        )
         line_x = np.linspace(0, float(np.nanmax(x)) * 1.05, 50)
         axis.plot(line_x, row["value"] * line_x * 1e6, color=colour, linewidth=1.2)
     axis.axhline(0, color="#9aa0a6", linewidth=0.7)
     axis.set_xlim(0, largest_x * 1.08 if largest_x > 0 else 1)
-    axis.set_xlabel("current density j in the carrier (10¹¹ A/m²)" if by_density
-                    else "current (mA)")  # fmt: skip
+    axis.set_xlabel(
+        "current density j in the carrier (10¹¹ A/m²)" if by_density else "current (mA)"
+    )
     what = "UMR amplitude / R" if from_amplitudes else "unidirectional ratio"
     axis.set_ylabel(f"{what} (ppm)")
     axis.set_title("lines: fits through the origin, U/R = r·j", fontsize=9)
@@ -241,9 +262,12 @@ def _current_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
 
 
 def _current_series(
-    points: pd.DataFrame, fits: pd.DataFrame, row: pd.Series, from_amplitudes: bool,
+    points: pd.DataFrame,
+    fits: pd.DataFrame,
+    row: pd.Series,
+    from_amplitudes: bool,
     by_density: bool,
-) -> tuple[np.ndarray, np.ndarray, np.ndarray]:  # fmt: skip
+) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
     if from_amplitudes:
         ratios = _quantity(fits, "angle", "umr_ratio")
         ratios = ratios[_matches(ratios, row, ("temperature_K", "field_T", "channel"))]
@@ -253,9 +277,12 @@ def _current_series(
         x = density / 1e11 if by_density else current * 1e3
         return x, ratios["value"].to_numpy(float), ratios["error"].to_numpy(float)
     data = points[_matches(points, row, CURRENT_GROUP_KEYS)].sort_values("current_A")
-    x = (data["current_density_A_m2"] / 1e11 if by_density else data["current_A"] * 1e3)
-    return (x.to_numpy(float), data["unidirectional_ratio"].to_numpy(float),
-            data["unidirectional_ratio_err"].to_numpy(float))  # fmt: skip
+    x = data["current_density_A_m2"] / 1e11 if by_density else data["current_A"] * 1e3
+    return (
+        x.to_numpy(float),
+        data["unidirectional_ratio"].to_numpy(float),
+        data["unidirectional_ratio_err"].to_numpy(float),
+    )
 
 
 def _density_for_currents(points: pd.DataFrame, currents: np.ndarray) -> np.ndarray:
@@ -272,17 +299,31 @@ def _field_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
     independent = _quantity(fits, "field", "umr_field_independent_ohm")
     if independent.empty:
         return "no group with at least three fields"
-    chosen = _pick(independent.sort_values(list(FIELD_GROUP_KEYS)).drop_duplicates(
-        list(FIELD_GROUP_KEYS)))  # fmt: skip
+    groups = independent.drop_duplicates(list(FIELD_GROUP_KEYS))
+    # The largest current has the largest UMR: show it across temperatures and angles.
+    largest = groups["current_A"].max()
+    if pd.notna(largest):
+        groups = groups[np.isclose(groups["current_A"].to_numpy(float), largest)]
+    chosen = _pick(groups.sort_values(list(FIELD_GROUP_KEYS)))
     from_amplitudes = chosen["angle_deg"].isna().all() and points["angle_deg"].notna().any()
     series = [_field_series(points, fits, row, from_amplitudes) for _, row in chosen.iterrows()]
     factor, unit = _ohm_scale(np.concatenate([values for _, values, _ in series]))
     figure, axes = _new_figure(1, 1, width=6.4, height=4.2)
     axis = axes[0, 0]
-    for colour, (_, row), (field_T, values, errors) in zip(SERIES_COLOURS, chosen.iterrows(), series):
+    for colour, (_, row), (field_T, values, errors) in zip(
+        SERIES_COLOURS, chosen.iterrows(), series
+    ):
         label = _label(row, ("temperature_K", "angle_deg", "current_A", "channel"))
-        axis.errorbar(field_T, values * factor, yerr=errors * factor, fmt="o", markersize=4,
-                      color=colour, label=label, elinewidth=0.8)  # fmt: skip
+        axis.errorbar(
+            field_T,
+            values * factor,
+            yerr=errors * factor,
+            fmt="o",
+            markersize=4,
+            color=colour,
+            label=label,
+            elinewidth=0.8,
+        )
         curve_x, curve_y = _field_curve(fits, row, field_T)
         axis.plot(curve_x, curve_y * factor, color=colour, linewidth=1.2)
     what = "UMR amplitude" if from_amplitudes else "unidirectional part"
@@ -301,14 +342,22 @@ def _field_series(
         amplitudes = _quantity(fits, "angle", "umr_ohm")
         data = amplitudes[_matches(amplitudes, row, ("temperature_K", "current_A", "channel"))]
         data = data.sort_values("field_T")
-        return (data["field_T"].to_numpy(float), data["value"].to_numpy(float),
-                data["error"].to_numpy(float))  # fmt: skip
+        return (
+            data["field_T"].to_numpy(float),
+            data["value"].to_numpy(float),
+            data["error"].to_numpy(float),
+        )
     data = points[_matches(points, row, FIELD_GROUP_KEYS)].sort_values("field_T")
-    return (data["field_T"].to_numpy(float), data["unidirectional_ohm"].to_numpy(float),
-            data["unidirectional_ohm_err"].to_numpy(float))  # fmt: skip
+    return (
+        data["field_T"].to_numpy(float),
+        data["unidirectional_ohm"].to_numpy(float),
+        data["unidirectional_ohm_err"].to_numpy(float),
+    )
 
 
-def _field_curve(fits: pd.DataFrame, row: pd.Series, field_T: np.ndarray) -> tuple[np.ndarray, np.ndarray]:
+def _field_curve(
+    fits: pd.DataFrame, row: pd.Series, field_T: np.ndarray
+) -> tuple[np.ndarray, np.ndarray]:
     rows = fits[(fits["analysis"] == "field") & _matches(fits, row, FIELD_GROUP_KEYS)]
     values = dict(zip(rows["quantity"], rows["value"]))
     finite = field_T[np.isfinite(field_T)]
@@ -317,11 +366,16 @@ def _field_curve(fits: pd.DataFrame, row: pd.Series, field_T: np.ndarray) -> tup
     sign = -1.0 if finite.max() <= 0 else 1.0
     magnitude = np.linspace(np.abs(finite).min(), np.abs(finite).max(), 200)
     if "umr_field_scale_T" in values:
-        curve = field_inverse(magnitude, values["umr_field_independent_ohm"],
-                              values["umr_field_dependent_ohm"], values["umr_field_scale_T"])  # fmt: skip
+        curve = field_inverse(
+            magnitude,
+            values["umr_field_independent_ohm"],
+            values["umr_field_dependent_ohm"],
+            values["umr_field_scale_T"],
+        )
     elif "umr_field_slope_ohm_per_T" in values:
-        curve = field_linear(magnitude, values["umr_field_independent_ohm"],
-                             values["umr_field_slope_ohm_per_T"])  # fmt: skip
+        curve = field_linear(
+            magnitude, values["umr_field_independent_ohm"], values["umr_field_slope_ohm_per_T"]
+        )
     else:
         return np.array([]), np.array([])
     assert set(FIELD_FORMS) == {"linear", "inverse"}  # keep the curves in step with the forms
@@ -329,6 +383,7 @@ def _field_curve(fits: pd.DataFrame, row: pd.Series, field_T: np.ndarray) -> tup
 
 
 # --- temperature -----------------------------------------------------------------------------
+
 
 def _temperature_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
     rows = fits[fits["analysis"] == "temperature"]
@@ -346,12 +401,25 @@ def _temperature_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
     for colour, name in zip(SERIES_COLOURS, names):
         group = groups.get_group(name).sort_values("temperature_K")
         label = _label(pd.Series(dict(zip(keys, name))), keys)
-        axes[0, 0].errorbar(group["temperature_K"], group["resistance_ohm"],
-                            yerr=group["resistance_ohm_err"], fmt="o-", color=colour,
-                            markersize=3.5, label=label, linewidth=1)  # fmt: skip
-        axes[0, 1].errorbar(group["temperature_K"], group["unidirectional_ratio"] * 1e6,
-                            yerr=group["unidirectional_ratio_err"] * 1e6, fmt="o-",
-                            color=colour, markersize=3.5, linewidth=1)  # fmt: skip
+        axes[0, 0].errorbar(
+            group["temperature_K"],
+            group["resistance_ohm"],
+            yerr=group["resistance_ohm_err"],
+            fmt="o-",
+            color=colour,
+            markersize=3.5,
+            label=label,
+            linewidth=1,
+        )
+        axes[0, 1].errorbar(
+            group["temperature_K"],
+            group["unidirectional_ratio"] * 1e6,
+            yerr=group["unidirectional_ratio_err"] * 1e6,
+            fmt="o-",
+            color=colour,
+            markersize=3.5,
+            linewidth=1,
+        )
     axes[0, 0].set_ylabel("resistance R (Ω)")
     axes[0, 1].set_ylabel("unidirectional ratio (ppm)")
     for axis in axes.flat:
@@ -362,8 +430,11 @@ def _temperature_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
 
 def _amplitude_temperature_figure(rows: pd.DataFrame, panels: list[str]) -> Any:
     figure, axes = _new_figure(1, len(panels))
-    units = {"umr_ratio": ("UMR amplitude / R (ppm)", 1e6),
-             "amr_ratio": ("AMR ratio (%)", 1e2), "smr_ratio": ("SMR ratio (%)", 1e2)}  # fmt: skip
+    units = {
+        "umr_ratio": ("UMR amplitude / R (ppm)", 1e6),
+        "amr_ratio": ("AMR ratio (%)", 1e2),
+        "smr_ratio": ("SMR ratio (%)", 1e2),
+    }
     keys = ("field_T", "current_A", "channel")
     for axis, quantity in zip(axes.flat, panels):
         data = rows[rows["quantity"] == quantity]
@@ -371,9 +442,16 @@ def _amplitude_temperature_figure(rows: pd.DataFrame, panels: list[str]) -> Any:
         label_text, factor = units[quantity]
         for colour, (_, row) in zip(SERIES_COLOURS, series.iterrows()):
             group = data[_matches(data, row, keys)].sort_values("temperature_K")
-            axis.errorbar(group["temperature_K"], group["value"] * factor,
-                          yerr=group["error"] * factor, fmt="o-", color=colour, markersize=4,
-                          linewidth=1, label=_label(row, keys))  # fmt: skip
+            axis.errorbar(
+                group["temperature_K"],
+                group["value"] * factor,
+                yerr=group["error"] * factor,
+                fmt="o-",
+                color=colour,
+                markersize=4,
+                linewidth=1,
+                label=_label(row, keys),
+            )
         axis.set_xlabel("temperature T (K)")
         axis.set_ylabel(label_text)
         axis.legend(fontsize=7)
@@ -382,6 +460,7 @@ def _amplitude_temperature_figure(rows: pd.DataFrame, panels: list[str]) -> Any:
 
 
 # --- time trace ------------------------------------------------------------------------------
+
 
 def read_first_readings(path: Path, n_points: int = TIME_TRACE_POINTS) -> pd.DataFrame:
     """Readings of the first `n_points` points, reading no further into the file than needed."""
@@ -414,15 +493,28 @@ def _time_trace_figure(readings_path: Path) -> Any:
         factor, unit = _volt_scale(data["voltage_V"].to_numpy(float))
         for polarity in (1, 0, -1):
             subset = data[data["polarity"] == polarity]
-            axis.plot(subset["time_s"] - start, subset["voltage_V"] * factor, "o",
-                      markersize=3.5, color=POLARITY_COLOURS[polarity],
-                      label=POLARITY_LABELS[polarity])  # fmt: skip
+            axis.plot(
+                subset["time_s"] - start,
+                subset["voltage_V"] * factor,
+                "o",
+                markersize=3.5,
+                color=POLARITY_COLOURS[polarity],
+                label=POLARITY_LABELS[polarity],
+            )
         for point, group in data.groupby("point"):
             begin = group["time_s"].min() - start
             axis.axvline(begin, color="#c6cad0", linewidth=0.8, linestyle="--")
-            axis.annotate(f"point {point}", (begin, 1.0), xycoords=("data", "axes fraction"),
-                          fontsize=7, va="top", ha="left", color="#55606e",
-                          xytext=(2, -2), textcoords="offset points")  # fmt: skip
+            axis.annotate(
+                f"point {point}",
+                (begin, 1.0),
+                xycoords=("data", "axes fraction"),
+                fontsize=7,
+                va="bottom",
+                ha="left",
+                color="#55606e",
+                xytext=(2, 1),
+                textcoords="offset points",
+            )
         axis.set_ylabel(f"{channel} voltage ({unit})")
         axis.legend(title="current", fontsize=7, title_fontsize=7, loc="center right")
     axes[-1, 0].set_xlabel("time since the first reading (s)")

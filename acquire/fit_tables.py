@@ -26,6 +26,7 @@ is there, else the name does (a name containing "xy", "yx" or "hall" is transver
 
 from __future__ import annotations
 
+import contextlib
 import json
 import math
 from collections.abc import Mapping, Sequence
@@ -77,25 +78,29 @@ DENSITY_UNIT = 1e11  # current densities are fitted in units of 1e11 A/m^2
 LINEARITY_SIGMAS = 3.0
 
 QUANTITY_NOTES: dict[str, str] = {
-    "resistance_<term>": "harmonic coefficient of resistance_ohm (term c0, cos1, sin1, cos2, sin2)",
+    "resistance_<term>": "harmonic coefficient of resistance_ohm, term c0, cos1, sin1, cos2, sin2",
     "unidirectional_<term>": "harmonic coefficient of unidirectional_ohm",
-    "amr_ohm": "anisotropic MR, R(m along current) - R(m across it) (2 x the cos 2 term)",
-    "smr_ohm": "spin Hall MR in zy, R(m along z) - R(m along y) (2 x the cos 2 term)",
-    "planar_hall_ohm": "planar Hall, R_xy = planar_hall_ohm/2 * sin 2phi (2 x the sin 2 term)",
-    "anomalous_hall_ohm": "anomalous Hall in zx/zy, the cos(theta) term of the transverse R",
-    "<mr>_ratio": "amr/smr over the mean resistance c0",
-    "umr_ohm": "unidirectional MR amplitude, the sin term of unidirectional_ohm (m_y part)",
+    "amr_ohm": "anisotropic MR, R(m along the current x) - R(m across it) (xy: 2*a2; zx: -2*a2)",
+    "smr_ohm": "spin Hall MR in zy, R(m along z) - R(m along y) (2*a2)",
+    "amr_ratio, smr_ratio": "amr_ohm or smr_ohm over the mean resistance c0",
+    "planar_hall_ohm": "planar Hall, R_xy = planar_hall_ohm/2 * sin 2phi (2*b2)",
+    "anomalous_hall_ohm": "anomalous Hall in zx/zy, the cos(theta) term a1 of the transverse R",
+    "umr_ohm": "unidirectional MR amplitude, the sin term b1 of unidirectional_ohm (m_y part)",
     "umr_ratio": "umr_ohm over the mean resistance c0",
-    "angle_offset_deg": "sample mounting offset from the 2phi phase (folded into +-45 deg)",
-    "angle_offset_applied_deg": "run-wide offset subtracted before the angle fits",
-    "umr_slope_ohm": "unidirectional_ohm = k*j, k per 1e11 A/m^2",
+    "angle_offset_deg": "sample mounting offset from the 2phi phase, folded into (-45, 45] deg",
+    "angle_offset_applied_deg": "run-wide offset subtracted from the angles before fitting",
+    "umr_slope_ohm": "unidirectional_ohm = k*j, k per 1e11 A/m^2 (per mA without a density)",
     "umr_linear_ohm, umr_cubic_ohm": "unidirectional_ohm = k1*j + k3*j^3",
-    "umr_ratio_per_1e11_A_m2": "unidirectional_ratio = r*j",
-    "nonlinear_from_A_m2": "first current density off the low-current line by > 3 sigma",
-    "umr_field_*": "field dependence of the UMR (see FIELD_FORMS)",
+    "umr_ratio_per_1e11_A_m2 (umr_ratio_per_mA)": "unidirectional_ratio = r*j",
+    "nonlinear_from_A_m2 (nonlinear_from_A)": "first j off the low-current line by > 3 sigma",
+    "umr_field_independent_ohm": "UMR part that survives at high field (A)",
+    "umr_field_dependent_ohm": "inverse form: UMR part falling with field, its zero-field value C",
+    "umr_field_scale_T": "inverse form: field Bs at which that part has halved",
+    "umr_field_slope_ohm_per_T": "linear form: slope of UMR against |B|",
     "dR_dT_ohm_per_K": "local slope of the lowest-current resistance against temperature",
-    "heating_slope_ohm_per_mA2": "R = R0 + h*I^2",
-    "temperature_rise_K_per_mA2, temperature_rise_at_max_current_K": "h/(dR/dT), x I_max^2",
+    "heating_slope_ohm_per_mA2": "h in R = R0 + h*I^2",
+    "temperature_rise_K_per_mA2": "h/(dR/dT)",
+    "temperature_rise_at_max_current_K": "h*I_max^2/(dR/dT); note WARNING above the limit",
 }
 
 
@@ -139,7 +144,9 @@ def read_run_context(run_dir: Path) -> RunContext:
     protocol = _mapping(_mapping(document.get("protocol")).get("normalised"))
     sample = _mapping(protocol.get("sample"))
     channel_geometry = _mapping(sample.get("channel"))
-    instruments = _mapping(_mapping(_mapping(document.get("rig")).get("normalised")).get("instruments"))
+    instruments = _mapping(
+        _mapping(_mapping(document.get("rig")).get("normalised")).get("instruments")
+    )
     probes = {
         name: str(_mapping(entry).get("probe", ""))
         for name, entry in instruments.items()
@@ -181,11 +188,24 @@ def _layer(entry: Mapping[str, Any]) -> dict[str, Any]:
 
 
 POINT_COLUMNS: tuple[str, ...] = (
-    "point", "temperature_K", "field_T", "angle_deg", "current_A", "current_density_A_m2",
-    "channel", "n_cycles", "resistance_ohm", "resistance_ohm_err", "unidirectional_ohm",
-    "unidirectional_ohm_err", "unidirectional_ratio", "unidirectional_ratio_err",
-    "offset_V", "offset_V_err", "flags",
-)  # fmt: skip
+    "point",
+    "temperature_K",
+    "field_T",
+    "angle_deg",
+    "current_A",
+    "current_density_A_m2",
+    "channel",
+    "n_cycles",
+    "resistance_ohm",
+    "resistance_ohm_err",
+    "unidirectional_ohm",
+    "unidirectional_ohm_err",
+    "unidirectional_ratio",
+    "unidirectional_ratio_err",
+    "offset_V",
+    "offset_V_err",
+    "flags",
+)
 
 
 def read_points(path: Path) -> pd.DataFrame:
@@ -199,8 +219,8 @@ def normalise_points(points: pd.DataFrame) -> pd.DataFrame:
     for column in POINT_COLUMNS:
         if column not in frame:
             frame[column] = "" if column in ("channel", "flags") else np.nan
-    frame["channel"] = frame["channel"].fillna("").astype(str)
-    frame["flags"] = frame["flags"].fillna("").astype(str)
+    for text in ("channel", "flags"):
+        frame[text] = frame[text].astype(object).where(frame[text].notna(), "").astype(str)
     numeric = [c for c in POINT_COLUMNS if c not in ("channel", "flags")]
     frame[numeric] = frame[numeric].apply(pd.to_numeric, errors="coerce")
     return frame
@@ -224,7 +244,9 @@ def group_ids(frame: pd.DataFrame, keys: Sequence[str]) -> tuple[NDArray[np.int6
     return inverse.ravel().astype(np.int64), key_frame
 
 
-def distinct_per_group(ids: NDArray[np.int64], values: NDArray[np.float64], n_groups: int) -> NDArray[np.int64]:
+def distinct_per_group(
+    ids: NDArray[np.int64], values: NDArray[np.float64], n_groups: int
+) -> NDArray[np.int64]:
     usable = (ids >= 0) & np.isfinite(values)
     if not usable.any():
         return np.zeros(n_groups, np.int64)
@@ -261,7 +283,9 @@ def tidy_rows(
         if key in keys:
             columns[key] = keys[key].to_numpy()
         else:
-            columns[key] = np.full(n, "" if key == "channel" else np.nan, dtype=object if key == "channel" else float)
+            columns[key] = np.full(
+                n, "" if key == "channel" else np.nan, dtype=object if key == "channel" else float
+            )
     columns.update(
         analysis=analysis,
         quantity=quantity,
@@ -274,6 +298,18 @@ def tidy_rows(
         note=np.broadcast_to(np.asarray(note, dtype=object), (n,)),
     )
     return pd.DataFrame(columns, index=pd.RangeIndex(n))
+
+
+def read_fits_table(path: Path) -> pd.DataFrame:
+    """fits.csv back as written: text columns as str (empty, not NaN), numbers as float."""
+    text = ("channel", "analysis", "quantity", "unit", "model", "note")
+    table = pd.read_csv(path, dtype={name: str for name in text}, keep_default_na=False)
+    for name in FIT_COLUMN_NAMES:
+        if name not in table:
+            table[name] = "" if name in text else np.nan
+        elif name not in text:
+            table[name] = pd.to_numeric(table[name].replace("", np.nan), errors="coerce")
+    return table[list(FIT_COLUMN_NAMES)]
 
 
 def empty_fits_table() -> pd.DataFrame:
@@ -321,11 +357,18 @@ def angle_fits(points: pd.DataFrame, context: RunContext, apply_offset: bool) ->
         applied, applied_err, note = _run_offset(offset, offset_err, longitudinal)
         frames.append(
             tidy_rows(
-                pd.DataFrame(index=range(1)), "angle", "angle_offset_applied_deg", applied,
-                applied_err, "deg", np.nan, int(np.isfinite(offset).sum()),
-                "weighted mean of the groups' angle_offset_deg", note,
+                pd.DataFrame(index=range(1)),
+                "angle",
+                "angle_offset_applied_deg",
+                applied,
+                applied_err,
+                "deg",
+                np.nan,
+                int(np.isfinite(offset).sum()),
+                "weighted mean of the groups' angle_offset_deg",
+                note,
             )
-        )  # fmt: skip
+        )
         resistance = _fit_quantity(swept, ids, len(keys), angle - applied, "resistance_ohm")
     unidirectional = _fit_quantity(swept, ids, len(keys), angle - applied, "unidirectional_ohm")
 
@@ -335,21 +378,34 @@ def angle_fits(points: pd.DataFrame, context: RunContext, apply_offset: bool) ->
         for index, term in enumerate(HARMONIC_TERMS):
             frames.append(
                 tidy_rows(
-                    keys, "angle", f"{label}_{term}", fit.coefficients[:, index],
-                    fit.errors[:, index], "ohm", fit.reduced_chi2, fit.n_points, model,
+                    keys,
+                    "angle",
+                    f"{label}_{term}",
+                    fit.coefficients[:, index],
+                    fit.scaled_errors[:, index],
+                    "ohm",
+                    fit.reduced_chi2,
+                    fit.n_points,
+                    model,
                     _fit_note(fit),
                 )
-            )  # fmt: skip
+            )
     offset_note = "from raw angles; +-90 deg ambiguity folded into (-45, 45]"
     has_offset = np.isfinite(offset)
     frames.append(
         tidy_rows(
-            keys[has_offset], "angle", "angle_offset_deg", offset[has_offset],
-            offset_err[has_offset], "deg", resistance.reduced_chi2[has_offset],
-            resistance.n_points[has_offset], "a2 cos 2phi + b2 sin 2phi = A cos 2(phi - phi0)",
+            keys[has_offset],
+            "angle",
+            "angle_offset_deg",
+            offset[has_offset],
+            offset_err[has_offset],
+            "deg",
+            resistance.reduced_chi2[has_offset],
+            resistance.n_points[has_offset],
+            "a2 cos 2phi + b2 sin 2phi = A cos 2(phi - phi0)",
             offset_note,
         )
-    )  # fmt: skip
+    )
     named, amplitudes = _named_amplitudes(keys, kinds, resistance, unidirectional, context)
     amplitudes["current_density_A_m2"] = _group_mean(
         ids, swept["current_density_A_m2"].to_numpy(float), len(keys)
@@ -359,7 +415,9 @@ def angle_fits(points: pd.DataFrame, context: RunContext, apply_offset: bool) ->
     return AngleResult(rows, amplitudes)
 
 
-def _group_mean(ids: NDArray[np.int64], values: NDArray[np.float64], n_groups: int) -> NDArray[np.float64]:
+def _group_mean(
+    ids: NDArray[np.int64], values: NDArray[np.float64], n_groups: int
+) -> NDArray[np.float64]:
     """Mean of each group's values; NaN if any value of the group is missing."""
     member = ids >= 0
     total = np.bincount(ids[member], weights=np.nan_to_num(values[member]), minlength=n_groups)
@@ -370,17 +428,35 @@ def _group_mean(ids: NDArray[np.int64], values: NDArray[np.float64], n_groups: i
 
 
 def _fit_quantity(
-    frame: pd.DataFrame, ids: NDArray[np.int64], n_groups: int, angle: NDArray[np.float64], column: str
+    frame: pd.DataFrame,
+    ids: NDArray[np.int64],
+    n_groups: int,
+    angle: NDArray[np.float64],
+    column: str,
 ) -> GroupedLinearFit:
+    # One sweep shares current, channel, temperature and field, hence one noise level.
     return fit_harmonics_by_group(
-        angle, frame[column].to_numpy(float), frame[f"{column}_err"].to_numpy(float), ids, n_groups
+        angle,
+        frame[column].to_numpy(float),
+        frame[f"{column}_err"].to_numpy(float),
+        ids,
+        n_groups,
+        pool_errors=True,
     )
 
 
 def _fit_note(fit: GroupedLinearFit) -> NDArray[np.object_]:
-    notes = np.where(fit.weighted, "", "unweighted: errors from the residual scatter")
+    factor = fit.birge_factor
+    scaled = np.char.mod("errors x %.3g = sqrt(reduced chi2)", factor)
+    notes = np.where(
+        fit.weighted,
+        np.where(factor > 1, scaled, ""),
+        "unweighted: errors from the residual scatter",
+    )
     failed = ~np.isfinite(fit.coefficients[:, 0])
-    return np.where(failed, "not fitted: angles do not determine the harmonics", notes).astype(object)
+    return np.where(failed, "not fitted: angles do not determine the harmonics", notes).astype(
+        object
+    )
 
 
 def _mounting_offsets(
@@ -396,8 +472,14 @@ def _mounting_offsets(
         cos2, sin2, cov[:, 3, 3], cov[:, 4, 4], cov[:, 3, 4], reference_deg=45.0
     )
     usable_hall = ~longitudinal & (plane == "xy")
-    offset = np.where(longitudinal, from_longitudinal[0], np.where(usable_hall, from_hall[0], np.nan))
-    error = np.where(longitudinal, from_longitudinal[1], np.where(usable_hall, from_hall[1], np.nan))
+    from_longitudinal = (from_longitudinal[0], from_longitudinal[1] * resistance.birge_factor)
+    from_hall = (from_hall[0], from_hall[1] * resistance.birge_factor)
+    offset = np.where(
+        longitudinal, from_longitudinal[0], np.where(usable_hall, from_hall[0], np.nan)
+    )
+    error = np.where(
+        longitudinal, from_longitudinal[1], np.where(usable_hall, from_hall[1], np.nan)
+    )
     return offset, error
 
 
@@ -425,7 +507,7 @@ def _named_amplitudes(
     context: RunContext,
 ) -> tuple[list[pd.DataFrame], pd.DataFrame]:
     plane = context.rotation_plane
-    c0, c0_err = resistance.coefficients[:, 0], resistance.errors[:, 0]
+    c0, c0_err = resistance.coefficients[:, 0], resistance.scaled_errors[:, 0]
     longitudinal = kinds == "longitudinal"
     frames: list[pd.DataFrame] = []
     amplitudes = keys.copy()
@@ -433,20 +515,38 @@ def _named_amplitudes(
     amplitudes["resistance_c0"] = c0
     amplitudes["resistance_c0_err"] = c0_err
 
-    def add(mask: NDArray[np.bool_], quantity: str, value: Any, error: Any, unit: str,
-            fit: GroupedLinearFit, model: str, note: str = "") -> None:  # fmt: skip
+    def add(
+        mask: NDArray[np.bool_],
+        quantity: str,
+        value: Any,
+        error: Any,
+        unit: str,
+        fit: GroupedLinearFit,
+        model: str,
+        note: str = "",
+    ) -> None:
         value = np.asarray(value, dtype=float)
         error = np.asarray(error, dtype=float)
         frames.append(
-            tidy_rows(keys[mask], "angle", quantity, value[mask], error[mask], unit,
-                      fit.reduced_chi2[mask], fit.n_points[mask], model, note)
-        )  # fmt: skip
+            tidy_rows(
+                keys[mask],
+                "angle",
+                quantity,
+                value[mask],
+                error[mask],
+                unit,
+                fit.reduced_chi2[mask],
+                fit.n_points[mask],
+                model,
+                note,
+            )
+        )
         amplitudes[quantity] = np.where(mask, value, np.nan)
         amplitudes[f"{quantity}_err"] = np.where(mask, error, np.nan)
 
     cos1, sin1 = 1, 2
     cos2, sin2 = 3, 4
-    r_coef, r_err = resistance.coefficients, resistance.errors
+    r_coef, r_err = resistance.coefficients, resistance.scaled_errors
     if plane == "zy":
         mr_name, mr_sign, mr_model = "smr", 2.0, "smr_ohm = 2*a2 = R(m||z) - R(m||y)"
     elif plane == "zx":
@@ -459,7 +559,7 @@ def _named_amplitudes(
     mr_ratio = ratio_with_error(mr, mr_err, c0, c0_err)
     add(longitudinal, f"{mr_name}_ratio", *mr_ratio, "1", resistance, f"{mr_name}_ohm / c0")
 
-    umr, umr_err = unidirectional.coefficients[:, sin1], unidirectional.errors[:, sin1]
+    umr, umr_err = unidirectional.coefficients[:, sin1], unidirectional.scaled_errors[:, sin1]
     umr_note = "expected ~0: m_y = 0 in the zx plane" if plane == "zx" else ""
     umr_model = "umr_ohm = b1 of unidirectional_ohm (m_y part)"
     add(longitudinal, "umr_ohm", umr, umr_err, "ohm", unidirectional, umr_model, umr_note)
@@ -469,21 +569,44 @@ def _named_amplitudes(
     transverse = ~longitudinal
     if plane == "xy":
         hall, hall_err = 2.0 * r_coef[:, sin2], 2.0 * r_err[:, sin2]
-        add(transverse, "planar_hall_ohm", hall, hall_err, "ohm", resistance,
-            "R_xy = planar_hall_ohm/2 * sin 2phi (2*b2)")  # fmt: skip
+        add(
+            transverse,
+            "planar_hall_ohm",
+            hall,
+            hall_err,
+            "ohm",
+            resistance,
+            "R_xy = planar_hall_ohm/2 * sin 2phi (2*b2)",
+        )
     else:
-        add(transverse, "anomalous_hall_ohm", r_coef[:, cos1], r_err[:, cos1], "ohm",
-            resistance, "R_xy = anomalous_hall_ohm * cos(theta) (a1; m_z part)")  # fmt: skip
+        add(
+            transverse,
+            "anomalous_hall_ohm",
+            r_coef[:, cos1],
+            r_err[:, cos1],
+            "ohm",
+            resistance,
+            "R_xy = anomalous_hall_ohm * cos(theta) (a1; m_z part)",
+        )
     return frames, amplitudes
 
 
 # --- where the current, field and heating analyses take their values from ------------------
 
 SOURCE_COLUMNS = (
-    "temperature_K", "field_T", "angle_deg", "current_A", "current_density_A_m2", "channel",
-    "resistance_ohm", "resistance_ohm_err", "unidirectional_ohm", "unidirectional_ohm_err",
-    "unidirectional_ratio", "unidirectional_ratio_err",
-)  # fmt: skip
+    "temperature_K",
+    "field_T",
+    "angle_deg",
+    "current_A",
+    "current_density_A_m2",
+    "channel",
+    "resistance_ohm",
+    "resistance_ohm_err",
+    "unidirectional_ohm",
+    "unidirectional_ohm_err",
+    "unidirectional_ratio",
+    "unidirectional_ratio_err",
+)
 
 
 @dataclass(frozen=True)
@@ -507,11 +630,14 @@ def analysis_source(
     if "umr_ohm" in amplitudes and np.isfinite(amplitudes["umr_ohm"].to_numpy(float)).any():
         renamed = amplitudes[amplitudes["kind"] == "longitudinal"].rename(
             columns={
-                "resistance_c0": "resistance_ohm", "resistance_c0_err": "resistance_ohm_err",
-                "umr_ohm": "unidirectional_ohm", "umr_ohm_err": "unidirectional_ohm_err",
-                "umr_ratio": "unidirectional_ratio", "umr_ratio_err": "unidirectional_ratio_err",
+                "resistance_c0": "resistance_ohm",
+                "resistance_c0_err": "resistance_ohm_err",
+                "umr_ohm": "unidirectional_ohm",
+                "umr_ohm_err": "unidirectional_ohm_err",
+                "umr_ratio": "unidirectional_ratio",
+                "umr_ratio_err": "unidirectional_ratio_err",
             }
-        )  # fmt: skip
+        )
         renamed = renamed.assign(angle_deg=np.nan)
         return AnalysisSource(
             renamed[list(SOURCE_COLUMNS)].reset_index(drop=True), "angle-fit amplitudes", True
@@ -541,15 +667,14 @@ def current_abscissa(
     density = frame["current_density_A_m2"].to_numpy(float).copy()
     missing = ~np.isfinite(density)
     if missing.any() and context.layers and context.width_m:
-        try:
+        # An ill-defined stack leaves the gaps empty: the fit then falls back to mA and says so.
+        with contextlib.suppress(ValueError, TypeError, KeyError):
             density[missing] = carrier_current_density(
                 frame["current_A"].to_numpy(float)[missing],
                 context.width_m,
                 context.layers,
                 context.sheet_resistance_ohm,
             )
-        except (ValueError, TypeError, KeyError):
-            pass
     if np.isfinite(density).all():
         return density / DENSITY_UNIT, "1e11 A/m^2", DENSITY_UNIT
     return frame["current_A"].to_numpy(float) * 1e3, "mA", 1e-3
@@ -580,21 +705,67 @@ def current_fits(source: AnalysisSource, context: RunContext) -> pd.DataFrame:
     by_density = x_unit != "mA"
     ratio_name = "umr_ratio_per_1e11_A_m2" if by_density else "umr_ratio_per_mA"
     frames = [
-        tidy_rows(keys, "current", "umr_slope_ohm", line.coefficients[:, 0], line.errors[:, 0],
-                  f"ohm {per}", line.reduced_chi2, line.n_points, "U = k*j", _fit_note(line)),
-        tidy_rows(keys, "current", "umr_linear_ohm", cubic.coefficients[:, 0],
-                  cubic.errors[:, 0], f"ohm {per}", cubic.reduced_chi2, cubic.n_points,
-                  "U = k1*j + k3*j^3", _fit_note(cubic)),
-        tidy_rows(keys, "current", "umr_cubic_ohm", cubic.coefficients[:, 1],
-                  cubic.errors[:, 1], f"ohm per ({x_unit})^3", cubic.reduced_chi2,
-                  cubic.n_points, "U = k1*j + k3*j^3", _fit_note(cubic)),
-        tidy_rows(keys, "current", ratio_name, ratio_line.coefficients[:, 0],
-                  ratio_line.errors[:, 0], f"1 {per}", ratio_line.reduced_chi2,
-                  ratio_line.n_points, "U/R = r*j", _fit_note(ratio_line)),
-        tidy_rows(keys, "current", "nonlinear_from_A_m2" if by_density else "nonlinear_from_A",
-                  onset, np.nan, "A/m^2" if by_density else "A", np.nan, line.n_points,
-                  f"first |U - k_low*j| > {LINEARITY_SIGMAS:g} sigma", onset_note),
-    ]  # fmt: skip
+        tidy_rows(
+            keys,
+            "current",
+            "umr_slope_ohm",
+            line.coefficients[:, 0],
+            line.scaled_errors[:, 0],
+            f"ohm {per}",
+            line.reduced_chi2,
+            line.n_points,
+            "U = k*j",
+            _fit_note(line),
+        ),
+        tidy_rows(
+            keys,
+            "current",
+            "umr_linear_ohm",
+            cubic.coefficients[:, 0],
+            cubic.scaled_errors[:, 0],
+            f"ohm {per}",
+            cubic.reduced_chi2,
+            cubic.n_points,
+            "U = k1*j + k3*j^3",
+            _fit_note(cubic),
+        ),
+        tidy_rows(
+            keys,
+            "current",
+            "umr_cubic_ohm",
+            cubic.coefficients[:, 1],
+            cubic.scaled_errors[:, 1],
+            f"ohm per ({x_unit})^3",
+            cubic.reduced_chi2,
+            cubic.n_points,
+            "U = k1*j + k3*j^3",
+            _fit_note(cubic),
+        ),
+        tidy_rows(
+            keys,
+            "current",
+            ratio_name,
+            ratio_line.coefficients[:, 0],
+            ratio_line.scaled_errors[:, 0],
+            f"1 {per}",
+            ratio_line.reduced_chi2,
+            ratio_line.n_points,
+            "U/R = r*j",
+            _fit_note(ratio_line),
+        ),
+        tidy_rows(
+            keys,
+            "current",
+            "nonlinear_from_A_m2" if by_density else "nonlinear_from_A",
+            onset,
+            np.nan,
+            "A/m^2" if by_density else "A",
+            np.nan,
+            line.n_points,
+            f"first |U - k_low*j| > {LINEARITY_SIGMAS:g} sigma",
+            onset_note,
+        ),
+    ]
     extra = [f"from {source.origin}"]
     if not by_density:
         extra.append("no current density (no density column, no sample geometry): per mA")
@@ -619,7 +790,8 @@ def _linearity_onset(
 
     The low-current line goes through the origin and is fitted to the lower half of each
     group's distinct currents (at least two). A point's sigma combines its own error (or the
-    low line's residual scatter when errors are missing) with the line's slope error times x.
+    low line's residual scatter when errors are missing) with the line's slope error times x;
+    both are inflated by the low line's Birge factor when its scatter exceeds its errors.
     """
     valid = (ids >= 0) & np.isfinite(x) & np.isfinite(y)
     frame = pd.DataFrame({"g": np.where(valid, ids, -1), "x": np.abs(x)})
@@ -629,12 +801,12 @@ def _linearity_onset(
     in_low = valid & (rank <= n_low[np.clip(ids, 0, None)])
     low = fit_linear_by_group(x, y, y_err, np.where(in_low, ids, -1), n_groups)
     slope = low.coefficients[:, 0]
-    slope_err = low.errors[:, 0]
+    slope_err = low.scaled_errors[:, 0]
     sum_x2 = np.bincount(ids[in_low], weights=x[in_low] ** 2, minlength=n_groups)
     scatter = np.sqrt(low.covariance[:, 0, 0] * sum_x2)  # s, for unweighted groups
 
     g = np.clip(ids, 0, None)
-    point_sigma = np.where(low.weighted[g], y_err, scatter[g])
+    point_sigma = np.where(low.weighted[g], y_err * low.birge_factor[g], scatter[g])
     sigma = np.sqrt(point_sigma**2 + (x * slope_err[g]) ** 2)
     residual = y - slope[g] * x
     off_line = valid & np.isfinite(sigma) & (np.abs(residual) > LINEARITY_SIGMAS * sigma)
@@ -685,7 +857,17 @@ def field_fits(source: AnalysisSource, form: str) -> pd.DataFrame:
     field_T = frame["field_T"].to_numpy(float)
     values = frame["unidirectional_ohm"].to_numpy(float)
     errors = frame["unidirectional_ohm_err"].to_numpy(float)
-    frames: list[pd.DataFrame] = []
+    collected: dict[str, list[Any]] = {
+        "group": [],
+        "quantity": [],
+        "value": [],
+        "error": [],
+        "unit": [],
+        "reduced_chi2": [],
+        "n_points": [],
+        "model": [],
+        "note": [],
+    }
     for group in np.flatnonzero(n_fields >= MIN_FIELDS):
         rows = order[bounds[group] : bounds[group + 1]]
         fit = fit_field_dependence(field_T[rows], values[rows], errors[rows], form)
@@ -697,27 +879,64 @@ def field_fits(source: AnalysisSource, form: str) -> pd.DataFrame:
             notes.append("inverse form needs >= 4 fields: linear form used")
         if key_frame["field_branch"].iloc[group] < 0:
             notes.append("negative fields, fitted against |B|")
+        birge = math.sqrt(fit.reduced_chi2) if fit.reduced_chi2 > 1 else 1.0
         if not fit.weighted:
             notes.append("unweighted: errors from the residual scatter")
+        elif birge > 1:
+            notes.append(f"errors x {birge:.3g} = sqrt(reduced chi2)")
         notes.append(fit.note)
-        group_keys = key_frame.iloc[[group]][list(FIELD_KEYS)].reset_index(drop=True)
-        for name, value, error in zip(fit.names, fit.values, fit.errors):
+        notes.append(_scale_warning(fit.names, fit.values, np.abs(field_T[rows])))
+        for name, value, error in zip(fit.names, fit.values, fit.errors * birge):
             quantity, unit = FIELD_QUANTITIES[name]
-            frames.append(
-                tidy_rows(group_keys, "field", quantity, value, error, unit, fit.reduced_chi2,
-                          fit.n_points, FIELD_FORMS[used_form], _join_notes(*notes))
-            )  # fmt: skip
-    if not frames:
+            for column, item in (
+                ("group", group),
+                ("quantity", quantity),
+                ("value", value),
+                ("error", error),
+                ("unit", unit),
+                ("reduced_chi2", fit.reduced_chi2),
+                ("n_points", fit.n_points),
+                ("model", FIELD_FORMS[used_form]),
+                ("note", _join_notes(*notes)),
+            ):
+                collected[column].append(item)
+    if not collected["group"]:
         return empty_fits_table()
-    return pd.concat(frames, ignore_index=True)
+    table = key_frame.iloc[collected.pop("group")][list(FIELD_KEYS)].reset_index(drop=True)
+    table = table.assign(analysis="field", **collected)
+    for key in KEY_COLUMNS:
+        if key not in table:
+            table[key] = np.nan
+    return table[list(FIT_COLUMN_NAMES)]
+
+
+def _scale_warning(
+    names: tuple[str, ...], values: NDArray[np.float64], field_T: NDArray[np.float64]
+) -> str:
+    """Bs far outside the measured fields means the data cannot tell the two parts apart."""
+    if "scale_T" not in names:
+        return ""
+    scale = values[names.index("scale_T")]
+    positive = field_T[field_T > 0]
+    if not np.isfinite(scale) or positive.size == 0:
+        return ""
+    if scale > 10 * positive.max() or scale < 0.1 * positive.min():
+        return "Bs outside the measured field range: the two parts are not separated"
+    return ""
 
 
 # --- temperature -----------------------------------------------------------------------------
 
 TEMPERATURE_QUANTITIES = (
-    "umr_ohm", "umr_ratio", "amr_ohm", "amr_ratio", "smr_ohm", "smr_ratio", "planar_hall_ohm",
+    "umr_ohm",
+    "umr_ratio",
+    "amr_ohm",
+    "amr_ratio",
+    "smr_ohm",
+    "smr_ratio",
+    "planar_hall_ohm",
     "anomalous_hall_ohm",
-)  # fmt: skip
+)
 SLOPE_KEYS = ("field_T", "angle_deg", "channel")
 
 
@@ -772,8 +991,15 @@ def _resistance_slopes(frame: pd.DataFrame, origin: str) -> pd.DataFrame:
     for shift in (-1, 0, 1):
         centre = rank + shift
         inside = (centre >= 0) & (centre < n_of_row) & (n_of_row >= 2)
-        copies.append(pd.DataFrame({"outer": outer_ids[inside], "centre": centre[inside],
-                                    "row": np.flatnonzero(inside)}))  # fmt: skip
+        copies.append(
+            pd.DataFrame(
+                {
+                    "outer": outer_ids[inside],
+                    "centre": centre[inside],
+                    "row": np.flatnonzero(inside),
+                }
+            )
+        )
     windows = pd.concat(copies, ignore_index=True)
     window_ids, window_keys = group_ids(windows, ("outer", "centre"))
     rows = windows["row"].to_numpy()
@@ -791,10 +1017,17 @@ def _resistance_slopes(frame: pd.DataFrame, origin: str) -> pd.DataFrame:
     keys = centres[["temperature_K", "current_A", *SLOPE_KEYS]]
     notes = [_join_notes("lowest current", f"from {origin}", note) for note in _fit_note(fit)]
     return tidy_rows(
-        keys, "temperature", "dR_dT_ohm_per_K", fit.coefficients[:, 1], fit.errors[:, 1],
-        "ohm/K", fit.reduced_chi2, fit.n_points,
-        "R = R(T0) + dR/dT*(T - T0), over T0 and its neighbours", np.array(notes, dtype=object),
-    )  # fmt: skip
+        keys,
+        "temperature",
+        "dR_dT_ohm_per_K",
+        fit.coefficients[:, 1],
+        fit.scaled_errors[:, 1],
+        "ohm/K",
+        fit.reduced_chi2,
+        fit.n_points,
+        "R = R(T0) + dR/dT*(T - T0), over T0 and its neighbours",
+        np.array(notes, dtype=object),
+    )
 
 
 # --- heating ---------------------------------------------------------------------------------
@@ -821,7 +1054,7 @@ def heating_fits(
         ids,
         len(keys),
     )
-    slope, slope_err = fit.coefficients[:, 1], fit.errors[:, 1]
+    slope, slope_err = fit.coefficients[:, 1], fit.scaled_errors[:, 1]
     largest = np.full(len(keys), -np.inf)
     np.maximum.at(largest, ids[ids >= 0], np.abs(current_mA[ids >= 0]))
 
@@ -831,7 +1064,8 @@ def heating_fits(
         dr_dt_source = "dR/dT given by the user"
     else:
         lookup = slopes.loc[
-            slopes["quantity"] == "dR_dT_ohm_per_K", ["temperature_K", *SLOPE_KEYS, "value", "error"]
+            slopes["quantity"] == "dR_dT_ohm_per_K",
+            ["temperature_K", *SLOPE_KEYS, "value", "error"],
         ]
         matched = keys.merge(lookup, on=["temperature_K", *SLOPE_KEYS], how="left")
         matched = matched.drop_duplicates(list(HEATING_KEYS))
@@ -842,13 +1076,17 @@ def heating_fits(
     at_max, at_max_err = rise * largest**2, rise_err * largest**2
 
     rise_notes = [
-        _join_notes(f"from {source.origin}", dr_dt_source if np.isfinite(value) else
-                    "no dR/dT in this run: pass dR_dT_ohm_per_K")
+        _join_notes(
+            f"from {source.origin}",
+            dr_dt_source if np.isfinite(value) else "no dR/dT in this run: pass dR_dT_ohm_per_K",
+        )
         for value in dr_dt
-    ]  # fmt: skip
+    ]
     max_notes = [
         _join_notes(
-            f"WARNING: above {options.heating_warn_K:g} K" if rise_K > options.heating_warn_K else "",
+            f"WARNING: above {options.heating_warn_K:g} K"
+            if rise_K > options.heating_warn_K
+            else "",
             f"at {current:.4g} mA",
             note,
         )
@@ -858,19 +1096,48 @@ def heating_fits(
     rise_model = f"{model}; rise = h*I^2/(dR/dT)"
     return pd.concat(
         [
-            tidy_rows(keys, "heating", "heating_slope_ohm_per_mA2", slope, slope_err,
-                      "ohm/mA^2", fit.reduced_chi2, fit.n_points, model,
-                      np.array([_join_notes(f"from {source.origin}", note)
-                                for note in _fit_note(fit)], dtype=object)),
-            tidy_rows(keys, "heating", "temperature_rise_K_per_mA2", rise, rise_err,
-                      "K/mA^2", fit.reduced_chi2, fit.n_points, rise_model,
-                      np.array(rise_notes, dtype=object)),
-            tidy_rows(keys, "heating", "temperature_rise_at_max_current_K", at_max, at_max_err,
-                      "K", fit.reduced_chi2, fit.n_points, rise_model,
-                      np.array(max_notes, dtype=object)),
+            tidy_rows(
+                keys,
+                "heating",
+                "heating_slope_ohm_per_mA2",
+                slope,
+                slope_err,
+                "ohm/mA^2",
+                fit.reduced_chi2,
+                fit.n_points,
+                model,
+                np.array(
+                    [_join_notes(f"from {source.origin}", note) for note in _fit_note(fit)],
+                    dtype=object,
+                ),
+            ),
+            tidy_rows(
+                keys,
+                "heating",
+                "temperature_rise_K_per_mA2",
+                rise,
+                rise_err,
+                "K/mA^2",
+                fit.reduced_chi2,
+                fit.n_points,
+                rise_model,
+                np.array(rise_notes, dtype=object),
+            ),
+            tidy_rows(
+                keys,
+                "heating",
+                "temperature_rise_at_max_current_K",
+                at_max,
+                at_max_err,
+                "K",
+                fit.reduced_chi2,
+                fit.n_points,
+                rise_model,
+                np.array(max_notes, dtype=object),
+            ),
         ],
         ignore_index=True,
-    )  # fmt: skip
+    )
 
 
 # --- the whole table -------------------------------------------------------------------------

@@ -64,6 +64,19 @@ class GroupedLinearFit:
     def errors(self) -> FloatArray:
         return np.sqrt(np.diagonal(self.covariance, axis1=1, axis2=2))
 
+    @property
+    def birge_factor(self) -> FloatArray:
+        """sqrt(reduced chi^2) where it exceeds 1, else 1 (and 1 for unweighted groups)."""
+        with np.errstate(invalid="ignore"):
+            return np.where(self.reduced_chi2 > 1, np.sqrt(self.reduced_chi2), 1.0)
+
+    @property
+    def scaled_errors(self) -> FloatArray:
+        """Errors inflated by the Birge factor: a weighted fit whose scatter exceeds its
+        errors reports the scatter instead (common practice when the input errors are
+        themselves estimates, as standard errors over a few cycles are)."""
+        return self.errors * self.birge_factor[:, None]
+
     def group(self, index: int) -> LinearFit:
         return LinearFit(
             coefficients=self.coefficients[index],
@@ -80,6 +93,7 @@ def fit_linear_by_group(
     errors: ArrayLike | None,
     group: ArrayLike,
     n_groups: int,
+    pool_errors: bool = False,
 ) -> GroupedLinearFit:
     """Least squares of `values ~ design @ coefficients`, separately for each group.
 
@@ -87,6 +101,12 @@ def fit_linear_by_group(
     non-finite value or design entry are left out. A group is fitted weighted when every one
     of its rows has a finite positive error, else unweighted (see the module docstring).
     The normal equations are accumulated with bincount and solved as one stacked batch.
+
+    pool_errors: give every row of a weighted group the group's RMS error. Use it when the
+    rows share one noise level but each error is a poor estimate of it (a standard error
+    over a few cycles has few degrees of freedom, and weighting by it scatters the weights);
+    the pooled sigma has all the group's degrees of freedom, and the reduced chi-squared
+    then compares the scatter between rows with the scatter within them.
     """
     design_matrix = np.asarray(design, dtype=float)
     if design_matrix.ndim == 1:
@@ -96,9 +116,7 @@ def fit_linear_by_group(
     group_index = np.asarray(group, dtype=np.int64)
     n_parameters = design_matrix.shape[1]
 
-    usable = (
-        (group_index >= 0) & np.isfinite(y) & np.all(np.isfinite(design_matrix), axis=1)
-    )
+    usable = (group_index >= 0) & np.isfinite(y) & np.all(np.isfinite(design_matrix), axis=1)
     g = group_index[usable]
     a = design_matrix[usable]
     y = y[usable]
@@ -109,6 +127,10 @@ def fit_linear_by_group(
     n_with_sigma = np.bincount(g, weights=has_sigma.astype(float), minlength=n_groups)
     weighted = (n_points > 0) & (n_with_sigma[:n_groups] == n_points)
     safe_sigma = np.where(has_sigma, s, 1.0)
+    if pool_errors:
+        mean_variance = np.bincount(g, weights=safe_sigma**2, minlength=n_groups)
+        mean_variance = mean_variance[:n_groups] / np.maximum(n_points, 1)
+        safe_sigma = np.sqrt(mean_variance[g])
     weight = np.where(weighted[g], 1.0 / safe_sigma**2, 1.0)
 
     normal = np.empty((n_groups, n_parameters, n_parameters))
@@ -184,8 +206,11 @@ def fit_harmonics_by_group(
     errors: ArrayLike | None,
     group: ArrayLike,
     n_groups: int,
+    pool_errors: bool = False,
 ) -> GroupedLinearFit:
-    return fit_linear_by_group(harmonic_design(angle_deg), values, errors, group, n_groups)
+    return fit_linear_by_group(
+        harmonic_design(angle_deg), values, errors, group, n_groups, pool_errors
+    )
 
 
 def second_harmonic_offset_deg(
@@ -220,14 +245,19 @@ def second_harmonic_offset_deg(
 
 
 def ratio_with_error(
-    numerator: ArrayLike, numerator_err: ArrayLike, denominator: ArrayLike, denominator_err: ArrayLike
+    numerator: ArrayLike,
+    numerator_err: ArrayLike,
+    denominator: ArrayLike,
+    denominator_err: ArrayLike,
 ) -> tuple[FloatArray, FloatArray]:
     """n/d with first-order error propagation, treating n and d as independent."""
     n = np.asarray(numerator, dtype=float)
     d = np.asarray(denominator, dtype=float)
     with np.errstate(divide="ignore", invalid="ignore"):
         ratio = n / d
-        error = np.sqrt((np.asarray(numerator_err) / d) ** 2 + (n * np.asarray(denominator_err) / d**2) ** 2)
+        error = np.sqrt(
+            (np.asarray(numerator_err) / d) ** 2 + (n * np.asarray(denominator_err) / d**2) ** 2
+        )
     return ratio, error
 
 
@@ -349,17 +379,23 @@ def _inverse_start(x: FloatArray, y: FloatArray, sigma: FloatArray | None) -> li
     positive = x[x > 0]
     low = positive.min() / 10 if positive.size else 1e-3
     high = max(x.max() * 10, low * 100)
-    best: tuple[float, list[float]] = (math.inf, [float(np.mean(y)), 0.0, float(np.sqrt(low * high))])
-    for scale in np.geomspace(low, high, 60):
-        trial = fit_linear(np.column_stack([np.ones_like(x), scale / (x + scale)]), y, sigma)
-        if not np.all(np.isfinite(trial.coefficients)):
-            continue
-        model = trial.coefficients[0] + trial.coefficients[1] * scale / (x + scale)
-        weights = 1.0 if sigma is None else 1.0 / sigma**2
-        cost = float(np.sum(weights * (y - model) ** 2))
-        if cost < best[0]:
-            best = (cost, [float(trial.coefficients[0]), float(trial.coefficients[1]), scale])
-    return best[1]
+    scales = np.geomspace(low, high, 60)
+    # One batched linear fit: every grid value of Bs is its own "group" of the same points.
+    basis = (scales[:, None] / (x[None, :] + scales[:, None])).ravel()
+    trials = fit_linear_by_group(
+        np.column_stack([np.ones_like(basis), basis]),
+        np.tile(y, scales.size),
+        None if sigma is None else np.tile(sigma, scales.size),
+        np.repeat(np.arange(scales.size), x.size),
+        scales.size,
+    )
+    model = trials.coefficients[:, :1] + trials.coefficients[:, 1:] * basis.reshape(scales.size, -1)
+    weights = 1.0 if sigma is None else 1.0 / sigma**2
+    cost = np.sum(weights * (y[None, :] - model) ** 2, axis=1)
+    if not np.isfinite(cost).any():
+        return [float(np.mean(y)), 0.0, float(np.sqrt(low * high))]
+    best = int(np.nanargmin(cost))
+    return [float(trials.coefficients[best, 0]), float(trials.coefficients[best, 1]), scales[best]]
 
 
 def _curve_fit(

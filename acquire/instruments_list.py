@@ -6,7 +6,7 @@ from pathlib import Path
 
 
 def list_instruments(rig_path: Path | None) -> int:
-    from drivers.factory import resource_manager_for
+    from drivers.visa_library import resource_manager_for
 
     if rig_path is None:
         manager = resource_manager_for("@py")
@@ -15,8 +15,9 @@ def list_instruments(rig_path: Path | None) -> int:
         return 0
     from acquire.load import load_rig
 
-    rig = load_rig(rig_path).rig
-    manager = resource_manager_for(rig.visa_library)
+    loaded = load_rig(rig_path)
+    rig = loaded.rig
+    manager = resource_manager_for(rig.visa_library, rig, rig_path.parent)
     for name, spec in rig.instruments.items():
         print(f"{name:<10} {spec.role:<15} {spec.resource:<28} "
               f"{_identity(manager, spec.resource, spec.timeout)}")

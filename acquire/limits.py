@@ -6,6 +6,7 @@ the loop value that breaks it.
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 
 from acquire.errors import InputError
@@ -14,6 +15,12 @@ from acquire.rig import DEFAULT_BACKLASH
 from acquire.sample_geometry import SampleGeometry
 
 COMPLIANCE_WARNING_FRACTION = 0.8  # common practice: keep headroom below the compliance voltage
+# Derived values (density, voltage) carry float round-off: a value at the limit must pass.
+ROUND_OFF = 1e-9
+
+
+def _above(value: float, limit: float) -> bool:
+    return value > limit * (1 + ROUND_OFF)
 
 
 @dataclass(frozen=True)
@@ -31,9 +38,17 @@ def _loop_index(loaded: LoadedProtocol, axis: str) -> int | None:
 
 def _value_key(loaded: LoadedProtocol, index: int, value: float) -> tuple[str | int, ...]:
     loop = loaded.protocol.loops[index]
-    if loop.values is not None and value in loop.values:
-        return ("loops", index, "values", loop.values.index(value))
+    # Loop values are tidied to 12 digits (25 kOe -> 2.5 T), so match within that.
+    for position, written in enumerate(loop.values or ()):
+        if math.isclose(written, value, rel_tol=1e-10, abs_tol=1e-300):
+            return ("loops", index, "values", position)
     return ("loops", index)
+
+
+def _range_text(low: float | None, high: float | None, unit: str) -> str:
+    low_text = "-inf" if low is None else f"{low:g}"
+    high_text = "inf" if high is None else f"{high:g}"
+    return f"{low_text}..{high_text} {unit}"
 
 
 def _fail(loaded: LoadedProtocol, axis: str, value: float, problem: str, fix: str) -> InputError:
@@ -62,13 +77,14 @@ def check_limits(loaded: LoadedProtocol, rig: LoadedRig | None) -> LimitReport:
                 "lower the current or, if the device allows it, raise limits.current",
             )
         density = current * per_ampere
-        if protocol.limits.current_density is not None and density > protocol.limits.current_density:
+        density_limit = protocol.limits.current_density
+        if density_limit is not None and _above(density, density_limit):
             raise _fail(
                 loaded, "current", current,
                 f"current {current * 1e3:g} mA gives {density:.3g} A/m^2 in the "
                 f"{geometry.carrier_name} layer, above limits.current_density "
                 f"{protocol.limits.current_density:.3g} A/m^2",
-                f"keep the current below {protocol.limits.current_density / per_ampere * 1e3:.3g} mA",
+                f"keep the current below {density_limit / per_ampere * 1e3:.3g} mA",
             )
     peak = max(currents)
     expected_voltage = peak * geometry.resistance_ohm
@@ -84,6 +100,14 @@ def check_limits(loaded: LoadedProtocol, rig: LoadedRig | None) -> LimitReport:
                     "lower the field or raise limits.field",
                 )
     if protocol.limits.temperature_max is not None:
+        finish = protocol.finish.temperature
+        if not isinstance(finish, str) and finish > protocol.limits.temperature_max:
+            raise loaded.document.source.error(
+                f"finish temperature {finish:g} K exceeds the sample limit "
+                f"{protocol.limits.temperature_max:g} K",
+                ("finish", "temperature"),
+                "lower it",
+            )
         for temperature in _values(loaded, "temperature"):
             if temperature > protocol.limits.temperature_max:
                 raise _fail(
@@ -113,7 +137,7 @@ def _check_rig(
                 f"({source.limits.current * 1e3:g} mA)", "lower the current",
             )
     if source.compliance is not None:
-        if expected_voltage > source.compliance:
+        if _above(expected_voltage, source.compliance):
             raise _fail(
                 loaded, "current", max(currents),
                 f"current {max(currents) * 1e3:g} mA needs about {expected_voltage:.3g} V across "
@@ -152,7 +176,7 @@ def _check_rig(
                 raise _fail(
                     loaded, "angle", angle,
                     f"angle {angle:g} deg (with the {backlash:g} deg backlash approach) is "
-                    f"outside the rotator range {low:g}..{high:g} deg of {name!r}",
+                    f"outside the rotator range {_range_text(low, high, 'deg')} of {name!r}",
                     "shift the angles into the range",
                 )
     temperature_entry = rig.one("temperature")
@@ -160,11 +184,28 @@ def _check_rig(
         name, _ = temperature_entry
         low = loaded_rig.ranges.get((name, "min"))
         high = loaded_rig.ranges.get((name, "max"))
+
+        def outside(temperature: float) -> bool:
+            return (low is not None and temperature < low) or (
+                high is not None and temperature > high
+            )
+
         for temperature in _values(loaded, "temperature"):
-            if (low is not None and temperature < low) or (high is not None and temperature > high):
+            if outside(temperature):
                 raise _fail(
-                    loaded, "temperature", temperature,
-                    f"temperature {temperature:g} K is outside the range of {name!r}",
+                    loaded,
+                    "temperature",
+                    temperature,
+                    f"temperature {temperature:g} K is outside the range "
+                    f"{_range_text(low, high, 'K')} of {name!r}",
                     "stay within the controller's limits",
                 )
+        finish = loaded.protocol.finish.temperature
+        if not isinstance(finish, str) and outside(finish):
+            raise loaded.document.source.error(
+                f"finish temperature {finish:g} K is outside the range "
+                f"{_range_text(low, high, 'K')} of {name!r}",
+                ("finish", "temperature"),
+                "stay within the controller's limits, or 'hold'",
+            )
     return source.compliance

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import difflib
+import typing
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -37,11 +38,25 @@ class LoadedRig:
     ranges: dict[tuple[str, str], float]
 
 
+def did_you_mean(word: str, options: list[str] | tuple[str, ...]) -> str | None:
+    """'did you mean 'x'?' naming every option that is equally close (e.g. 'stpe': stop, step)."""
+    scores = {option: difflib.SequenceMatcher(None, word, option).ratio() for option in options}
+    best = max(scores.values(), default=0.0)
+    if best < 0.6:  # difflib.get_close_matches' default cutoff
+        return None
+    close = [option for option in options if scores[option] == best]
+    return "did you mean " + " or ".join(repr(option) for option in close) + "?"
+
+
 def _allowed_keys(model: type[BaseModel], loc: KeyPath) -> list[str]:
     """Field names (and aliases) of the sub-model at `loc`, for a did-you-mean."""
     current: Any = model
+    named_entry = False  # the previous field is a mapping of names (instruments): skip the name
     for part in loc:
         if isinstance(part, int) or current is None:
+            continue
+        if named_entry:
+            named_entry = False
             continue
         fields = getattr(current, "model_fields", None)
         if fields is None:
@@ -52,14 +67,13 @@ def _allowed_keys(model: type[BaseModel], loc: KeyPath) -> list[str]:
         if info is None:
             return []
         current = _inner_model(info.annotation, part)
+        named_entry = typing.get_origin(info.annotation) is dict
     if current is None or not hasattr(current, "model_fields"):
         return []
     return [info.alias or name for name, info in current.model_fields.items()]
 
 
 def _inner_model(annotation: Any, tag: str | int | None = None) -> Any:
-    import typing
-
     if isinstance(annotation, type) and issubclass(annotation, BaseModel):
         return annotation
     for argument in typing.get_args(annotation):
@@ -92,16 +106,24 @@ def _clean_loc(loc: tuple[Any, ...], data: Any) -> KeyPath:
 def _pydantic_error(
     error: ValidationError, model: type[BaseModel], document: LoadedDocument
 ) -> InputError:
-    first = error.errors()[0]
+    errors = error.errors()
+    # A misspelt key also makes the real one "missing": report the misspelling, the cause.
+    first = next((e for e in errors if e["type"] == "extra_forbidden"), errors[0])
     path = _clean_loc(first["loc"], document.data)
+    # A value that may be a word or a quantity ('hold' or '300 K') fails both; the quantity's
+    # message says more, and the words go in the fix.
+    here = [e for e in errors if _clean_loc(e["loc"], document.data) == path]
+    words = [str(e.get("ctx", {}).get("expected")) for e in here if e["type"] == "literal_error"]
+    if words:
+        first = next((e for e in here if e["type"] == "value_error"), first)
     kind = first["type"]
     message = str(first["msg"]).removeprefix("Value error, ")
     source: SourceMap = document.source
     key_name = path[-1] if path else ""
+    value = first.get("input")
     if kind == "extra_forbidden":
         allowed = _allowed_keys(model, path[:-1])
-        close = difflib.get_close_matches(str(key_name), allowed, n=1)
-        fix = f"did you mean {close[0]!r}?" if close else f"allowed keys: {', '.join(allowed)}"
+        fix = did_you_mean(str(key_name), allowed) or f"allowed keys: {', '.join(allowed)}"
         return source.error(f"unknown key {key_name!r}", path, fix)
     if kind == "missing":
         return source.error("is required but missing", path, f"add '{key_name}:'")
@@ -114,9 +136,21 @@ def _pydantic_error(
         return source.error(message, path, "use one of the values listed")
     if kind in ("too_short",) and isinstance(key_name, str):
         return source.error("is empty", path, f"give at least one entry under '{key_name}'")
-    value = first.get("input")
+    if kind in ("dict_type", "model_type", "model_attributes_type"):
+        example = "{axis: field, values: [0.2 T]}" if path[:1] == ("loops",) else "{key: value}"
+        return source.error(
+            f"must be a mapping of keys to values (got {value!r})", path,
+            f"write 'key: value' pairs, e.g. '{example}'",
+        )
     shown = f" (got {value!r})" if not isinstance(value, (dict, list)) else ""
-    return source.error(f"{message}{shown}", path)
+    if message.startswith(repr(value)) or f"read {value!r}" in message:
+        shown = ""  # a unit error already quotes the value
+    fix = ""
+    if kind == "value_error" and words:
+        fix = "or write " + " or ".join(words)
+    elif kind == "string_type" and isinstance(value, (int, float)):
+        fix = f"put it in quotes: '{value}'"
+    return source.error(f"{message}{shown}", path, fix)
 
 
 def _validate(model: type[BaseModel], document: LoadedDocument) -> Any:
@@ -268,10 +302,10 @@ def load_rig(path: Path) -> LoadedRig:
         for name, spec in instruments.items():
             role = spec.get("role") if isinstance(spec, dict) else None
             if isinstance(role, str) and role not in ROLES:
-                close = difflib.get_close_matches(role, ROLES, n=1)
                 raise document.source.error(
-                    f"unknown role {role!r}", ("instruments", name, "role"),
-                    f"did you mean {close[0]!r}?" if close else f"use one of {', '.join(ROLES)}",
+                    f"unknown role {role!r}",
+                    ("instruments", name, "role"),
+                    did_you_mean(role, ROLES) or f"use one of {', '.join(ROLES)}",
                 )
     rig: Rig = _validate(Rig, document)
     ranges = _check_role_keys(rig, document.source)
@@ -284,12 +318,11 @@ def check_pair(protocol: LoadedProtocol, rig: LoadedRig) -> None:
     voltmeters = rig.rig.by_role("voltmeter")
     for index, channel in enumerate(protocol.protocol.readings.channels):
         if channel not in rig.rig.instruments:
-            close = difflib.get_close_matches(channel, list(voltmeters), n=1)
             raise source.error(
                 f"channel {channel!r} is not an instrument of rig {rig.rig.name!r}",
                 ("readings", "channels", index),
-                f"did you mean {close[0]!r}?" if close else
-                f"the rig's voltmeters are: {', '.join(voltmeters) or 'none'}",
+                did_you_mean(channel, list(voltmeters))
+                or f"the rig's voltmeters are: {', '.join(voltmeters) or 'none'}",
             )
         if rig.rig.instruments[channel].role != "voltmeter":
             raise source.error(

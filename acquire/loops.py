@@ -40,7 +40,10 @@ def _from_step(start: float, stop: float, step: float) -> np.ndarray:
             "step", f"gives {count} values, more than {MAX_VALUES_PER_LOOP}", "use a larger step"
         )
     direction = 1.0 if stop > start else -1.0
-    return start + direction * step * np.arange(count)
+    values = start + direction * step * np.arange(count)
+    # A grid through zero lands a rounding error away from it (-0.3 + 3 * 0.1 = 5.6e-17).
+    values[np.abs(values) < 1e-9 * step] = 0.0
+    return values
 
 
 def _from_num(start: float, stop: float, num: int, spacing: str) -> np.ndarray:
@@ -61,7 +64,9 @@ def _from_num(start: float, stop: float, num: int, spacing: str) -> np.ndarray:
             )
         sign = 1.0 if start > 0 else -1.0
         return sign * np.geomspace(abs(start), abs(stop), num)
-    return np.linspace(start, stop, num)
+    values = np.linspace(start, stop, num)
+    values[np.abs(values) < 1e-9 * abs(stop - start) / (num - 1)] = 0.0  # as in _from_step
+    return values
 
 
 def expand(

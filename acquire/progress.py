@@ -26,6 +26,7 @@ class Progress:
     last_status_wall: float = 0.0
     last_point: dict[str, Any] = field(default_factory=dict)
     state: str = "running"
+    min_status_interval_s: float = 0.0  # > 0 on the virtual clock, where points fly by
     _bar: Any = None
 
     def start(self, already_done: int) -> None:
@@ -67,7 +68,8 @@ class Progress:
                     f"ETA {format_eta(self.eta_s())}", refresh=False,
                 )
             self._bar.refresh()
-        self.write_status()
+        if time.monotonic() - self.last_status_wall >= self.min_status_interval_s:
+            self.write_status()
 
     def heartbeat(self) -> None:
         if time.monotonic() - self.last_status_wall >= HEARTBEAT_S:

@@ -4,7 +4,14 @@ from __future__ import annotations
 
 from typing import Annotated, Literal, Union
 
-from pydantic import BaseModel, ConfigDict, Discriminator, Field, field_validator
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Discriminator,
+    Field,
+    WithJsonSchema,
+    field_validator,
+)
 
 from acquire.quantities import (
     Angle,
@@ -190,8 +197,15 @@ class SampleLimits(Strict):
     temperature_max: Temperature | None = Field(default=None, gt=0)
 
 
+# YAML 1.1 (PyYAML, the loader) reads a bare `off` as false; the schema admits both spellings.
+FinishCurrent = Annotated[
+    Literal["off"],
+    WithJsonSchema({"enum": ["off", False], "type": ["string", "boolean"]}),
+]
+
+
 class Finish(Strict):
-    current: Literal["off"] = Field(
+    current: FinishCurrent = Field(
         default="off", description="the source always goes to zero, then output off"
     )
     field: Literal["zero", "hold"] = "zero"

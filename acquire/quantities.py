@@ -18,7 +18,9 @@ def quantity_type(dimension: units.Dimension) -> object:
 
     schema = {
         "type": "string",
-        "description": f"a {dimension.name} with its unit, e.g. '{dimension.example}'",
+        "description": (
+            f"{units.article(dimension.name)} with its unit, e.g. '{dimension.example}'"
+        ),
         "examples": [dimension.example],
     }
     return Annotated[float, BeforeValidator(parse), WithJsonSchema(schema)]

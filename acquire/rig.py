@@ -35,6 +35,17 @@ class HardwareLimits(Strict):
     min: str | None = Field(default=None, description="an angle (rotator) or temperature")
     max: str | None = Field(default=None, description="an angle (rotator) or temperature")
 
+    @field_validator("min", "max", mode="before")
+    @classmethod
+    def with_unit(cls, value: object) -> object:
+        # Read by role later (angle or temperature); a bare number is caught here, clearly.
+        if isinstance(value, (int, float)) and not isinstance(value, bool):
+            raise ValueError(
+                f"{value!r} has no unit; write it with its unit, like '{value} deg' for a "
+                f"rotator or '{value} K' for a temperature controller"
+            )
+        return value
+
 
 # Which limit keys and settings make sense for which role; anything else is a mistake.
 ROLE_LIMIT_KEYS: dict[str, set[str]] = {

@@ -110,7 +110,8 @@ class RunFolder:
     def write_status(self, status: dict[str, Any]) -> None:
         status = {**status, "updated_utc": utc_now(), "pid": os.getpid(),
                   "host": socket.gethostname()}
-        atomic_write_text(self.status_json, json.dumps(status, indent=2) + "\n")
+        # A heartbeat needs atomicity, not durability: after a power cut it is stale anyway.
+        atomic_write_text(self.status_json, json.dumps(status, indent=2) + "\n", durable=False)
 
     def read_status(self) -> dict[str, Any] | None:
         try:

@@ -33,6 +33,7 @@ from acquire.tables import POINT_COLUMN_SPECS, READING_COLUMNS
 log = logging.getLogger("flipsweep")
 
 EXIT_DONE, EXIT_FAILURE, EXIT_INTERRUPTED = 0, 1, 130
+DRY_RUN_SYNC_S = 1.0  # wall seconds between fsyncs and status writes on the virtual clock
 
 
 class Interrupted(Exception):
@@ -118,13 +119,14 @@ class SweepLog:
 
 def _simulation(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, seed: int | None):
     from sim_instruments.simulated_rig import open_simulated_rig
+    from sim_instruments.world import sample_overrides
 
     from sim_instruments.sample_model import BilayerSample, LayerSI, SampleParameters
 
     sample = loaded.protocol.sample
     layers = [LayerSI(layer.name, layer.thickness, layer.resistivity, layer is sample.carrier)
               for layer in sample.layers]
-    overrides = {key: value for key, value in rig.rig.simulation.items()}
+    overrides = sample_overrides(rig.rig.simulation)
     try:
         parameters = SampleParameters.from_geometry(
             sample.channel.length, sample.channel.width, layers, **overrides
@@ -137,12 +139,13 @@ def _simulation(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, seed: int 
 
 def _open(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, options: RunOptions,
           seed: int | None) -> tuple[dict[str, Any], Any]:
-    from drivers.factory import open_instruments, resource_manager_for
+    from drivers.factory import open_instruments
+    from drivers.visa_library import resource_manager_for
 
     if options.simulate:
         simulated = _simulation(loaded, rig, clock, seed)
         return open_instruments(rig.rig, simulated.resource_manager), simulated
-    manager = resource_manager_for(rig.rig.visa_library)
+    manager = resource_manager_for(rig.rig.visa_library, rig.rig, rig.path.parent)
     return open_instruments(rig.rig, manager), None
 
 
@@ -165,8 +168,10 @@ def _execute(
     handler = attach_log(folder)
     readings = AppendTable(folder.readings, READING_COLUMNS, "one row per voltmeter reading")
     points = AppendTable(folder.points, POINT_COLUMN_SPECS, "one row per (point, channel)")
+    virtual = isinstance(clock, VirtualClock)
     progress = Progress(folder, estimated.points, estimated.duration_s, clock.now,
-                        show_bar=options.progress)
+                        show_bar=options.progress,
+                        min_status_interval_s=DRY_RUN_SYNC_S if virtual else 0.0)
     sweeps = SweepLog()
     runner: Runner | None = None
     simulated = None
@@ -182,7 +187,8 @@ def _execute(
             folder.write_run_json(document)
             runner = Runner(loaded, rig, instruments, clock, readings, points,
                             on_point=lambda o: (progress.point_done(o), sweeps.add(o)),
-                            heartbeat=progress.heartbeat)
+                            heartbeat=progress.heartbeat,
+                            sync_interval_s=DRY_RUN_SYNC_S if virtual else 0.0)
             progress.start(start_point)
             log.info("starting at point %d of %d", start_point, estimated.points)
             runner.configure()

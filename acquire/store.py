@@ -44,9 +44,12 @@ class AppendTable:
     def extend(self, rows: Iterable[Sequence[object]]) -> None:
         self._file.writelines(",".join(map(format_cell, row)) + "\n" for row in rows)
 
-    def commit(self) -> None:
+    def commit(self, durable: bool = True) -> None:
+        """Flush to the operating system (survives a crash or kill); fsync also survives a
+        power cut."""
         self._file.flush()
-        os.fsync(self._file.fileno())
+        if durable:
+            os.fsync(self._file.fileno())
 
     def close(self) -> None:
         if not self._file.closed:
@@ -54,11 +57,12 @@ class AppendTable:
             self._file.close()
 
 
-def atomic_write_text(path: Path, text: str) -> None:
+def atomic_write_text(path: Path, text: str, durable: bool = True) -> None:
     """Write via a temporary file and rename, so a reader never sees half a file."""
     temporary = path.with_name(path.name + ".tmp")
     with open(temporary, "w", encoding="utf-8") as handle:
         handle.write(text)
         handle.flush()
-        os.fsync(handle.fileno())
+        if durable:
+            os.fsync(handle.fileno())
     os.replace(temporary, path)

@@ -48,6 +48,11 @@ ALL_DIMENSIONS = (
 )
 
 
+def article(name: str) -> str:
+    """The name with its indefinite article: 'an angle', 'a current'."""
+    return ("an " if name[0] in "aeiou" else "a ") + name
+
+
 class UnitError(ValueError):
     """A quantity that cannot be read as the expected dimension; the message says how to fix it."""
 
@@ -86,20 +91,24 @@ def to_si(value: object, dimension: Dimension) -> float:
     rotator and every plot in the trade uses.
     """
     if isinstance(value, bool) or value is None:
-        raise UnitError(f"expected a {dimension.name} with a unit, like {dimension.example!r}")
+        raise UnitError(
+            f"expected {article(dimension.name)} with a unit, like {dimension.example!r}"
+        )
     if isinstance(value, (int, float)):
         raise UnitError(
             f"{value!r} has no unit; write the {dimension.name} with its unit, "
             f"like {dimension.example!r}"
         )
     if not isinstance(value, str):
-        raise UnitError(f"expected a {dimension.name} like {dimension.example!r}, got {value!r}")
+        raise UnitError(
+            f"expected {article(dimension.name)} like {dimension.example!r}, got {value!r}"
+        )
     text = value.strip().replace("Ω", "ohm").replace("µ", "u").replace("μ", "u")
     try:
         quantity = _parse(text)
     except Exception as error:  # pint raises several unrelated types for bad text
         raise UnitError(
-            f"cannot read {value!r} as a {dimension.name} ({type(error).__name__}); "
+            f"cannot read {value!r} as {article(dimension.name)} ({type(error).__name__}); "
             f"write it like {dimension.example!r}"
         ) from None
     if not isinstance(quantity, pint.Quantity) or quantity.unitless:
@@ -124,7 +133,7 @@ def to_si(value: object, dimension: Dimension) -> float:
             result = None
     if result is None or not math.isfinite(result):
         raise UnitError(
-            f"{value!r} is not a {dimension.name}; write it like {dimension.example!r}"
+            f"{value!r} is not {article(dimension.name)}; write it like {dimension.example!r}"
         )
     return result
 

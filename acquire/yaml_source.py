@@ -62,12 +62,34 @@ def _walk(node: yaml.Node, path: KeyPath, file: str, locations: dict) -> None:
             _walk(item, (*path, index), file, locations)
 
 
+def _key_path_near(text: str, line: int) -> KeyPath:
+    """The first key written on `line`, else the last one before it; () if none can be read.
+
+    For errors YAML itself cannot place on a key (tabs, syntax): the text is read with tabs
+    as spaces, then with ever fewer lines before `line`, until it parses.
+    """
+    rows = text.replace("\t", "  ").splitlines()
+    for end in (len(rows), *range(line - 1, 0, -1)):
+        try:
+            node = yaml.compose("\n".join(rows[:end]), Loader=yaml.SafeLoader)
+            locations: dict[KeyPath, tuple[str, int]] = {}
+            _walk(node, (), "", locations)
+        except (yaml.YAMLError, InputError):
+            continue
+        written = [(row, -len(path), path) for path, (_, row) in locations.items() if row <= line]
+        return max(written)[2] if written else ()
+    return ()
+
+
 def parse_yaml_text(text: str, file: str) -> tuple[dict[str, Any], dict[KeyPath, tuple[str, int]]]:
     if "\t" in text:
         line = next(n for n, row in enumerate(text.splitlines(), 1) if "\t" in row)
         raise InputError(
             "contains a tab character; YAML indents with spaces only",
-            file=file, line=line, fix="replace tabs with spaces",
+            file=file,
+            key=_key_path_near(text, line),
+            line=line,
+            fix="replace tabs with spaces",
         )
     try:
         node = yaml.compose(text, Loader=yaml.SafeLoader)
@@ -77,11 +99,15 @@ def parse_yaml_text(text: str, file: str) -> tuple[dict[str, Any], dict[KeyPath,
         line = mark.line + 1 if mark is not None else None
         problem = getattr(error, "problem", None) or str(error).splitlines()[0]
         raise InputError(
-            f"is not valid YAML ({problem})", file=file, line=line,
-            fix="check indentation, colons and quotes on that line",
+            f"is not valid YAML ({problem})",
+            file=file,
+            line=line,
+            key=_key_path_near(text, line) if line is not None else (),
+            fix="check indentation, colons, brackets and quotes on that line and the one before",
         ) from None
     if not isinstance(data, dict) or node is None:
-        kind = "empty" if data is None else f"a {type(data).__name__}"
+        kinds = {type(None): "empty", list: "a list"}
+        kind = kinds.get(type(data), f"a single value ({str(data)[:40]!r})")
         raise InputError(
             f"must be a mapping of keys to values, but it is {kind}", file=file, line=1,
             fix="start with keys like 'name:' at the left margin",
@@ -123,7 +149,7 @@ def _read_text(path: Path, referenced_from: tuple[str, int] | None) -> str:
 
 def load_document(path: Path, *, allow_extends: bool = True) -> LoadedDocument:
     """Load a YAML document, following `extends:` (relative to each file) and merging."""
-    chain: list[tuple[Path, dict[str, Any], dict[KeyPath, tuple[str, int]], str]] = []
+    chain: list[tuple[Path, dict[str, Any], dict[KeyPath, tuple[str, int]], str, Path]] = []
     current: Path = path
     referenced_from: tuple[str, int] | None = None
     while True:
@@ -135,7 +161,7 @@ def load_document(path: Path, *, allow_extends: bool = True) -> LoadedDocument:
             )
         text = _read_text(current, referenced_from)
         data, locations = parse_yaml_text(text, str(current))
-        chain.append((resolved, data, locations, text))
+        chain.append((resolved, data, locations, text, current))
         parent = data.get("extends")
         if parent is None or not allow_extends:
             break
@@ -156,10 +182,10 @@ def load_document(path: Path, *, allow_extends: bool = True) -> LoadedDocument:
     merged: dict[str, Any] = {}
     source = SourceMap()
     texts: dict[str, str] = {}
-    for resolved, data, locations, text in reversed(chain):
+    for resolved, data, locations, text, given in reversed(chain):
         merged = deep_merge(merged, {k: v for k, v in data.items() if k != "extends"})
         source.locations.update({k: v for k, v in locations.items() if k[:1] != ("extends",)})
-        source.files.append(resolved)
+        source.files.append(given)
         texts[str(resolved)] = text
     # A list replaced by the child must not keep the base's per-item lines.
     for key_path in list(source.locations):

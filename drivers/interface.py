@@ -67,5 +67,16 @@ class Rotator(Instrument, Protocol):
 
 
 class TemperatureController(Instrument, Protocol):
+    def configure(self, rate_K_per_s: float | None) -> None: ...  # setpoint ramp rate, K/s
     def set_setpoint(self, kelvin: float) -> None: ...
     def temperature(self) -> float: ...
+
+
+# The protocol each rig role must implement (a user's `driver:` class is checked against it).
+ROLE_PROTOCOLS: dict[str, type] = {
+    "current_source": CurrentSource,
+    "voltmeter": Voltmeter,
+    "field": FieldSupply,
+    "rotator": Rotator,
+    "temperature": TemperatureController,
+}

@@ -133,24 +133,54 @@ def build_synthetic_run(run_dir: Path, run: SyntheticRun) -> Path:
                     for channel in run.channels:
                         transverse = "xy" in channel
                         i = current[point] * polarity
-                        r = sample.resistance(temperature[point], angle[point], current[point],
-                                              transverse)  # fmt: skip
-                        u = sample.unidirectional(field_T[point], angle[point], current[point],
-                                                  transverse)  # fmt: skip
+                        r = sample.resistance(
+                            temperature[point], angle[point], current[point], transverse
+                        )
+                        u = sample.unidirectional(
+                            field_T[point], angle[point], current[point], transverse
+                        )
                         voltage = i * r + abs(i) * u + 2e-6 + rng.normal(0, 2e-8)
                         reading_rows.append(
-                            (point, cycle, repeat, round(time_s, 3), "", temperature[point],
-                             field_T[point], angle[point], i, polarity, channel, voltage,
-                             temperature[point], field_T[point], angle[point], "")
-                        )  # fmt: skip
+                            (
+                                point,
+                                cycle,
+                                repeat,
+                                round(time_s, 3),
+                                "",
+                                temperature[point],
+                                field_T[point],
+                                angle[point],
+                                i,
+                                polarity,
+                                channel,
+                                voltage,
+                                temperature[point],
+                                field_T[point],
+                                angle[point],
+                                "",
+                            )
+                        )
     pd.DataFrame(
         reading_rows,
         columns=[
-            "point", "cycle", "repeat", "time_s", "timestamp", "temperature_K", "field_T",
-            "angle_deg", "current_A", "polarity", "channel", "voltage_V", "temperature_read_K",
-            "field_read_T", "angle_read_deg", "flags",
+            "point",
+            "cycle",
+            "repeat",
+            "time_s",
+            "timestamp",
+            "temperature_K",
+            "field_T",
+            "angle_deg",
+            "current_A",
+            "polarity",
+            "channel",
+            "voltage_V",
+            "temperature_read_K",
+            "field_read_T",
+            "angle_read_deg",
+            "flags",
         ],
-    ).to_csv(run_dir / "readings.csv", index=False)  # fmt: skip
+    ).to_csv(run_dir / "readings.csv", index=False)
 
     run_json = {
         "protocol": {
@@ -163,14 +193,18 @@ def build_synthetic_run(run_dir: Path, run: SyntheticRun) -> Path:
                     "channel": {"length_m": 40e-6, "width_m": 4e-6},
                     "layers": [
                         {"name": "CoFeB", "thickness_m": 2e-9, "resistivity_ohm_m": 1.5e-6},
-                        {"name": "W", "thickness_m": 5e-9, "resistivity_ohm_m": 1.2e-6,
-                         "carrier": True},
+                        {
+                            "name": "W",
+                            "thickness_m": 5e-9,
+                            "resistivity_ohm_m": 1.2e-6,
+                            "carrier": True,
+                        },
                     ],
                 },
             }
         },
         "rig": {"normalised": {"instruments": {"vxx": {"role": "voltmeter"}}}},
-    }  # fmt: skip
+    }
     (run_dir / "run.json").write_text(json.dumps(run_json), encoding="utf-8")
     return run_dir
 
@@ -235,9 +269,14 @@ def test_fit_run_recovers_the_sample_within_errors(tmp_path: Path) -> None:
 def test_fit_run_options_are_applied(tmp_path: Path) -> None:
     run_dir = build_synthetic_run(tmp_path / "run", _full_run())
     fits = pd.read_csv(
-        fit_run(run_dir, angle_offset=True, field_form="linear", dR_dT_ohm_per_K=0.01,
-                heating_warn_K=0.5)
-    )  # fmt: skip
+        fit_run(
+            run_dir,
+            angle_offset=True,
+            field_form="linear",
+            dR_dT_ohm_per_K=0.01,
+            heating_warn_K=0.5,
+        )
+    )
     applied = fits[fits["quantity"] == "angle_offset_applied_deg"]
     assert len(applied) == 1
     assert abs(applied["value"].iloc[0] - 3.0) < 4 * applied["error"].iloc[0]
@@ -251,7 +290,7 @@ def test_fit_run_options_are_applied(tmp_path: Path) -> None:
 
 
 def test_fit_run_without_a_points_file_says_so(tmp_path: Path) -> None:
-    with pytest.raises(FileNotFoundError, match="points.csv"):
+    with pytest.raises(FileNotFoundError, match=r"points\.csv"):
         fit_run(tmp_path)
 
 
@@ -283,4 +322,4 @@ def test_report_run_skips_figures_the_data_cannot_support(tmp_path: Path) -> Non
     page = report_run(run_dir).read_text(encoding="utf-8")
     pngs = sorted(path.name for path in (run_dir / "figures").glob("*.png"))
     assert pngs == ["time_trace.png"]
-    assert page.count('class="skipped"') == 4
+    assert page.count('class="figure-skipped"') == 4

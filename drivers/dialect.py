@@ -1,0 +1,219 @@
+"""Command dialects as data: the templates and reply specs of a role, with a rig's overrides.
+
+drivers/dialects/<role>.yaml holds a role's templates, common.yaml those every instrument
+shares (IEEE 488.2 and the error queue). A template with a reply spec is a query; a template
+with `{value}` (or `{per_minute}`, the value times 60, for rates) takes a number in SI units.
+An empty template means the instrument has no such command (allowed for the `optional` ones).
+"""
+
+from __future__ import annotations
+
+import string
+from collections.abc import Mapping
+from dataclasses import dataclass, field
+from functools import cache
+from pathlib import Path
+from types import MappingProxyType
+from typing import Any
+
+import yaml
+
+from acquire.errors import InputError
+from acquire.rig import ROLES, Instrument, Rig
+from acquire.yaml_source import SourceMap
+from drivers.replies import SCPI_ERROR, ReplyParser, reply_parser
+
+DIALECT_DIR = Path(__file__).with_name("dialects")
+# The one reply entry that is not a template: what an instrument says to a message it
+# does not understand.
+REJECTED = "rejected"
+ERROR_QUERY = "error_query"
+# Value fields a template may use, and the factor from the SI value to the field's value.
+VALUE_FIELDS: Mapping[str, float] = MappingProxyType({"value": 1.0, "per_minute": 60.0})
+
+
+@dataclass(frozen=True)
+class Dialect:
+    role: str
+    commands: Mapping[str, str]
+    reply_specs: Mapping[str, str]
+    optional: frozenset[str]
+    rejected: str
+    parsers: Mapping[str, ReplyParser] = field(init=False, repr=False, compare=False)
+    value_fields: Mapping[str, str | None] = field(init=False, repr=False, compare=False)
+
+    def __post_init__(self) -> None:
+        parsers = {name: reply_parser(spec) for name, spec in self.reply_specs.items()}
+        fields = {name: value_field(template) for name, template in self.commands.items()}
+        object.__setattr__(self, "parsers", MappingProxyType(parsers))
+        object.__setattr__(self, "value_fields", MappingProxyType(fields))
+
+    def supports(self, name: str) -> bool:
+        return bool(self.commands.get(name))
+
+    def is_query(self, name: str) -> bool:
+        return name in self.reply_specs
+
+    def takes_value(self, name: str) -> bool:
+        return self.value_fields[name] is not None
+
+    def render(self, name: str, value: float | None = None) -> str:
+        """The command text; only templates that take a value use `value`."""
+        template = self.commands[name]
+        if self.value_fields[name] is None:
+            return template
+        if value is None:
+            raise ValueError(f"{self.role} command {name!r} needs a value")
+        return template.format(value=value, per_minute=value * VALUE_FIELDS["per_minute"])
+
+
+def value_field(template: str) -> str | None:
+    """The value field a template uses, or None; ValueError if it uses anything else."""
+    used = {name for _, name, _, _ in string.Formatter().parse(template) if name is not None}
+    unknown = used - set(VALUE_FIELDS)
+    if unknown or len(used) > 1:
+        raise ValueError(
+            f"template {template!r} may use one of {{value}} or {{per_minute}}, "
+            f"uses {', '.join('{' + n + '}' for n in sorted(used)) or 'none'}"
+        )
+    return next(iter(used), None)
+
+
+def _read_dialect_file(path: Path) -> dict[str, Any]:
+    data = yaml.safe_load(path.read_text(encoding="utf-8")) or {}
+    return {
+        "commands": dict(data.get("commands") or {}),
+        "replies": dict(data.get("replies") or {}),
+        "optional": set(data.get("optional") or ()),
+    }
+
+
+@cache
+def role_dialect(role: str) -> Dialect:
+    """The default dialect of a role: common.yaml merged with <role>.yaml."""
+    if role not in ROLES:
+        raise ValueError(f"unknown role {role!r}; valid: {', '.join(ROLES)}")
+    common = _read_dialect_file(DIALECT_DIR / "common.yaml")
+    own = _read_dialect_file(DIALECT_DIR / f"{role}.yaml")
+    replies = {**common["replies"], **own["replies"]}
+    rejected = str(replies.pop(REJECTED, ""))
+    return Dialect(
+        role=role,
+        commands=MappingProxyType({**common["commands"], **own["commands"]}),
+        reply_specs=MappingProxyType(replies),
+        optional=frozenset(common["optional"] | own["optional"]),
+        rejected=rejected,
+    )
+
+
+def _problem(name: str, key: tuple[str, ...], problem: str, fix: str) -> InputError:
+    return InputError(problem, key=("instruments", name, *key), fix=fix)
+
+
+def _checked_template(base: Dialect, name: str, template_name: str, template: str) -> str:
+    key = ("commands", template_name)
+    if not isinstance(template, str):
+        raise _problem(name, key, "a command template must be text", "quote it")
+    if template == "":
+        if template_name not in base.optional:
+            raise _problem(
+                name, key, f"'{template_name}' cannot be blank: the {base.role} driver needs it",
+                f"give the instrument's command for {template_name}",
+            )
+        return template
+    try:
+        used = value_field(template)
+    except ValueError as error:
+        raise _problem(name, key, str(error), "use {value:.6g} or {per_minute:.6g}") from None
+    default_takes_value = base.value_fields[template_name] is not None
+    if default_takes_value and used is None:
+        raise _problem(
+            name, key, f"'{template_name}' sends a number but {template!r} has no {{value}}",
+            f"e.g. {base.commands[template_name]!r}",
+        )
+    if not default_takes_value and used is not None:
+        raise _problem(
+            name, key, f"'{template_name}' sends no number but {template!r} has a value field",
+            f"e.g. {base.commands[template_name]!r}",
+        )
+    if used is not None:
+        try:
+            template.format(value=1.0, per_minute=60.0)
+        except (ValueError, IndexError, KeyError) as error:
+            raise _problem(
+                name, key, f"template {template!r} cannot format a number: {error}",
+                "use a float format such as {value:.6g}",
+            ) from None
+    return template
+
+
+def _checked_reply(base: Dialect, name: str, reply_name: str, spec: str) -> str:
+    key = ("replies", reply_name)
+    if not isinstance(spec, str):
+        raise _problem(name, key, "a reply spec must be text", "quote it")
+    if reply_name == REJECTED:
+        return spec
+    if reply_name == ERROR_QUERY and spec != SCPI_ERROR:
+        raise _problem(
+            name, key, "the error queue is read as SCPI entries only",
+            "blank the error_query command instead if the instrument has no SCPI error queue",
+        )
+    try:
+        reply_parser(spec)
+    except ValueError as error:
+        raise _problem(name, key, str(error), "see the replies table in README") from None
+    return spec
+
+
+def dialect_for(name: str, spec: Instrument) -> Dialect:
+    """The dialect of one rig instrument: its role's, with the rig's `commands`/`replies`.
+
+    Raises InputError (key path into the rig file, no file name) for unknown template names,
+    blanked required commands, templates whose value field does not fit, malformed replies.
+    """
+    base = role_dialect(spec.role)
+    commands = dict(base.commands)
+    for template_name, template in spec.commands.items():
+        if template_name not in base.commands:
+            raise _problem(
+                name, ("commands", template_name),
+                f"unknown command template {template_name!r} for a {spec.role}",
+                f"valid names: {', '.join(sorted(base.commands))}",
+            )
+        commands[template_name] = _checked_template(base, name, template_name, template)
+    replies = dict(base.reply_specs)
+    rejected = base.rejected
+    for reply_name, reply_spec in spec.replies.items():
+        if reply_name != REJECTED and reply_name not in base.reply_specs:
+            valid = sorted([*base.reply_specs, REJECTED])
+            raise _problem(
+                name, ("replies", reply_name),
+                f"{reply_name!r} is not a query of a {spec.role}",
+                f"valid names: {', '.join(valid)}",
+            )
+        checked = _checked_reply(base, name, reply_name, reply_spec)
+        if reply_name == REJECTED:
+            rejected = checked
+        else:
+            replies[reply_name] = checked
+    return Dialect(
+        role=spec.role,
+        commands=MappingProxyType(commands),
+        reply_specs=MappingProxyType(replies),
+        optional=base.optional,
+        rejected=rejected,
+    )
+
+
+def validate_dialects(rig: Rig, source: SourceMap | None = None) -> dict[str, Dialect]:
+    """Every instrument's dialect, or one InputError located in the rig file when `source`
+    (LoadedRig.document.source) is given. Sends nothing to any instrument."""
+    dialects: dict[str, Dialect] = {}
+    for name, spec in rig.instruments.items():
+        try:
+            dialects[name] = dialect_for(name, spec)
+        except InputError as error:
+            if source is None:
+                raise
+            raise source.error(error.problem, error.key, error.fix) from None
+    return dialects

@@ -1,0 +1,180 @@
+"""Bind pyvisa-sim devices to a SimulatedWorld: every template's property becomes live.
+
+pyvisa-sim answers a getter with `Property.get_value()` and applies a setter with
+`Property.set_value(parsed)`; replacing each device's Property objects (named after the
+dialect's templates) with ones that call the world makes the replies follow the simulated
+physics, while the bytes still travel through pyvisa-sim exactly as with static definitions.
+The per-transaction work is one dict lookup and one closure call beyond pyvisa-sim's own.
+"""
+
+from __future__ import annotations
+
+from collections.abc import Callable
+from typing import Any
+
+import pyvisa
+from pyvisa.rname import to_canonical_name
+from pyvisa_sim.component import NoResponse, Property
+
+from acquire.rig import Rig
+from drivers.dialect import ERROR_QUERY, VALUE_FIELDS, Dialect, dialect_for
+from sim_instruments.reply_text import ReplyWriter, reply_writer
+from sim_instruments.world import SimulatedWorld
+
+DATA_TYPE_ERROR = b'-104,"Data type error"'  # SCPI-99 vol. 1: not a number where one belongs
+DATA_OUT_OF_RANGE = b'-222,"Data out of range"'  # SCPI-99 vol. 1
+
+# A reader (query: () -> value), an action (fixed command: () -> None) or a setter
+# (command with a value: (float) -> None); the dialect says which a template is.
+Binding = Callable[..., object]
+
+
+class LiveQuery(Property[str]):
+    def __init__(self, name: str, read: Callable[[], object], write_reply: ReplyWriter) -> None:
+        # Property.__init__ would parse specs; a live property has none.
+        self.name, self.specs, self._value = name, None, None
+        self._read, self._write_reply = read, write_reply
+
+    def get_value(self) -> str:
+        return self._write_reply(self._read())
+
+    def set_value(self, string_value: Any) -> None:
+        raise ValueError(f"{self.name} is read-only")
+
+
+class LiveCommand(Property[str]):
+    def __init__(self, name: str, apply: Callable[[Any], None]) -> None:
+        self.name, self.specs, self._value = name, None, None
+        self._apply = apply
+
+    def get_value(self) -> None:
+        return None
+
+    def set_value(self, string_value: Any) -> None:
+        self._apply(string_value)
+
+
+class ErrorQueue:
+    """Appends to and clears a pyvisa-sim device's SCPI error queue (if it has one)."""
+
+    def __init__(self, device: Any, dialect: Dialect) -> None:
+        self._queue = None
+        if dialect.supports(ERROR_QUERY):
+            self._queue = device._error_queues.get(dialect.commands[ERROR_QUERY].encode())
+
+    def push(self, entry: bytes) -> None:
+        if self._queue is not None:
+            self._queue._queue.append(entry)
+
+    def clear(self) -> None:
+        if self._queue is not None:
+            self._queue.clear()
+
+
+def _value_command(
+    apply: Callable[[float], object], scale: float, errors: ErrorQueue
+) -> Callable[[Any], None]:
+    def set_from_text(text: Any) -> None:
+        try:
+            value = float(text) / scale
+        except (TypeError, ValueError):
+            errors.push(DATA_TYPE_ERROR)
+            return
+        try:
+            apply(value)
+        except ValueError:
+            errors.push(DATA_OUT_OF_RANGE)
+
+    return set_from_text
+
+
+def _role_bindings(world: SimulatedWorld, name: str, role: str) -> dict[str, Binding]:
+    if role == "current_source":
+        return {
+            "source_current_mode": lambda: None,
+            "set_current": world.set_current,
+            "read_current": world.programmed_current,
+            "output_on": lambda: world.set_output(True),
+            "output_off": lambda: world.set_output(False),
+            "compliance": world.set_compliance,
+            "tripped": world.compliance_tripped,
+        }
+    if role == "voltmeter":
+        return {
+            "dc_voltage": lambda: None,
+            "nplc": lambda value: world.set_nplc(name, value),
+            "range": lambda value: world.set_range(name, value),
+            "autorange": lambda: world.set_range(name, None),
+            "autozero_on": lambda: world.set_autozero(name, True),
+            "autozero_off": lambda: world.set_autozero(name, False),
+            "read": lambda: world.read_voltage(name),
+        }
+    if role == "field":
+        return {
+            "set_target": world.set_field_target,
+            "ramp_rate": world.set_field_rate,
+            "field": world.field_T,
+        }
+    if role == "rotator":
+        return {
+            "move": world.move_rotator,
+            "position": world.angle_deg,
+            "moving": world.rotator_moving,
+            "home": lambda: world.move_rotator(0.0),
+            "speed": world.set_rotator_speed,
+        }
+    return {
+        "setpoint": world.set_temperature_setpoint,
+        "temperature": world.temperature_K,
+        "ramp_rate": world.set_temperature_rate,
+    }
+
+
+def _common_bindings(world: SimulatedWorld, name: str, errors: ErrorQueue) -> dict[str, Binding]:
+    def reset() -> None:
+        world.reset(name)
+        errors.clear()
+
+    return {"reset": reset, "clear_status": errors.clear}
+
+
+def _live_property(
+    template: str, binding: Binding, dialect: Dialect, errors: ErrorQueue
+) -> Property[str]:
+    if dialect.is_query(template):
+        return LiveQuery(template, binding, reply_writer(dialect.reply_specs[template]))
+    field = dialect.value_fields[template]
+    if field is None:
+        return LiveCommand(template, lambda _parsed: binding())
+    return LiveCommand(template, _value_command(binding, VALUE_FIELDS[field], errors))
+
+
+def _commands_never_reply(device: Any) -> None:
+    """A message without '?' is a command, and a SCPI instrument answers no command, not even
+    one it does not know (that goes to the error queue only). pyvisa-sim would answer it with
+    the rejection reply, which the next query would then read instead of its own answer."""
+    match = device._match
+
+    def match_keeping_commands_silent(message: bytes) -> Any:
+        response = match(message)
+        if response is None and b"?" not in message:
+            device.error_response("command_error")
+            return NoResponse
+        return response
+
+    device._match = match_keeping_commands_silent
+
+
+def couple(resource_manager: pyvisa.ResourceManager, world: SimulatedWorld, rig: Rig) -> None:
+    """Replace the properties of each rig instrument's pyvisa-sim device by live ones."""
+    devices = resource_manager.visalib.devices  # type: ignore[attr-defined]
+    for name, spec in rig.instruments.items():
+        device = devices[to_canonical_name(spec.resource)]
+        dialect = dialect_for(name, spec)
+        errors = ErrorQueue(device, dialect)
+        bindings = {**_role_bindings(world, name, spec.role),
+                    **_common_bindings(world, name, errors)}
+        for template, binding in bindings.items():
+            if template in device._properties:
+                device._properties[template] = _live_property(template, binding, dialect, errors)
+        _commands_never_reply(device)
