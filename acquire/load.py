@@ -142,15 +142,43 @@ def _pydantic_error(
             f"must be a mapping of keys to values (got {value!r})", path,
             f"write 'key: value' pairs, e.g. '{example}'",
         )
-    shown = f" (got {value!r})" if not isinstance(value, (dict, list)) else ""
+    written = _written(document.data, path, value)  # as the user wrote it, not in SI
+    shown = f" (got {written!r})" if not isinstance(written, (dict, list)) else ""
     if message.startswith(repr(value)) or f"read {value!r}" in message:
         shown = ""  # a unit error already quotes the value
-    fix = ""
+    fix = _TYPE_FIXES.get(kind, "")
     if kind == "value_error" and words:
         fix = "or write " + " or ".join(words)
     elif kind == "string_type" and isinstance(value, (int, float)):
         fix = f"put it in quotes: '{value}'"
+    elif kind == "list_type" and isinstance(value, dict):
+        fix = "write a list: one item per entry, each starting with '- '"
+    elif kind == "list_type":
+        fix = f"write a list in brackets, e.g. '[{value}]'"
     return source.error(f"{message}{shown}", path, fix)
+
+
+_TYPE_FIXES = {
+    "int_parsing": "write a whole number, e.g. '4'",
+    "int_from_float": "write a whole number, e.g. '4'",
+    "int_type": "write a whole number, e.g. '4'",
+    "float_parsing": "write a plain number, e.g. '1'",
+    "float_type": "write a plain number, e.g. '1'",
+    "bool_parsing": "write true or false",
+    "bool_type": "write true or false",
+    "list_type": "write a list in brackets, e.g. '[a, b]'",
+    "string_type": "write text",
+}
+
+
+def _written(data: Any, path: KeyPath, default: Any) -> Any:
+    for part in path:
+        in_dict = isinstance(data, dict) and part in data
+        in_list = isinstance(data, list) and isinstance(part, int) and part < len(data)
+        if not (in_dict or in_list):
+            return default
+        data = data[part]
+    return data
 
 
 def _validate(model: type[BaseModel], document: LoadedDocument) -> Any:
@@ -309,6 +337,9 @@ def load_rig(path: Path) -> LoadedRig:
                 )
     rig: Rig = _validate(Rig, document)
     ranges = _check_role_keys(rig, document.source)
+    from drivers.dialect import validate_dialects  # the dialects are the drivers' data
+
+    validate_dialects(rig, document.source)
     return LoadedRig(rig, document, path, ranges)
 
 

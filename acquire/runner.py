@@ -139,6 +139,9 @@ class Runner:
             if spec.speed:
                 self.instruments.rotator.configure(spec.speed)
             self.angle_now = self.instruments.rotator.position()
+        if self.instruments.temperature is not None:
+            spec = spec_of[self.instruments.names["temperature"]]
+            self.instruments.temperature.configure(spec.rate)
         for instrument in self.instruments.all():
             problems = instrument.errors()
             if problems:

@@ -35,9 +35,9 @@ instruments:
     commands:
       move: "MA {value:.1f}"
       position: "PA?"
-      moving: "MS?"
-      home: "OR"
-      speed: "SP {value:.1f}"
+      moving: "BUSY?"
+      home: "ZERO"
+      speed: "SPEED {value:.1f}"
       identify: "ID?"
       reset: ""
       clear_status: ""
@@ -103,7 +103,7 @@ def test_a_serial_rotator_without_scpi(odd_rig: Rig) -> None:
             "ASRL5::INSTR", read_termination="\r", write_termination="\r"
         )
         raw.write("MA 10.0")
-        assert raw.query("MS?") == "MOVING"
+        assert raw.query("BUSY?") == "MOVING"
         raw.close()
 
 

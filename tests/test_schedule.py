@@ -76,9 +76,12 @@ def test_a_protocol_without_slow_axes_has_no_moves() -> None:
 
 
 def test_steps_are_lazy() -> None:
-    # A huge schedule must not be built as a list before the first step.
+    # A night of a million points is handed out one step at a time, not as a list.
     plans = [LoopPlan("field", tuple(float(k) for k in range(1000))),
              LoopPlan("angle", tuple(float(k) for k in range(1000))),
              LoopPlan("current", (1e-3,))]
-    first = next(iter(iterate_steps(plans)))
-    assert isinstance(first, Move)
+    steps = iterate_steps(plans)
+    assert iter(steps) is steps  # an iterator, not a container
+    assert isinstance(next(steps), Move)
+    points = iterate_points(plans)
+    assert iter(points) is points
