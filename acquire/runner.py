@@ -18,7 +18,7 @@ from acquire.reduction import BlockResult, reduce_blocks
 from acquire.rig import DEFAULT_BACKLASH, DEFAULT_NPLC
 from acquire.sample_geometry import SampleGeometry
 from acquire.schedule import Measure, Move, Point, Step, iterate_steps, plans_from
-from acquire.store import AppendTable
+from acquire.store import AppendTable, format_cell
 from acquire.waits import StabilityWait, WaitTimeout, approach_targets
 from drivers.interface import CommunicationError, InstrumentError
 
@@ -200,10 +200,16 @@ class Runner:
         meters = [self.instruments.voltmeters[name] for name in self.channels]
         voltages = np.empty((len(self.channels), alternation.cycles, len(self.polarities),
                              per_step))
-        setpoint_temperature = point.temperature_K if "temperature" in self.used_axes else None
-        setpoint_field = point.field_T if "field" in self.used_axes else None
-        setpoint_angle = point.angle_deg if "angle" in self.used_axes else None
-        rows = []
+        used = self.used_axes
+        setpoints = ",".join(format_cell(value) for value in (
+            point.temperature_K if "temperature" in used else None,
+            point.field_T if "field" in used else None,
+            point.angle_deg if "angle" in used else None,
+        ))
+        channels = [format_cell(name) for name in self.channels]
+        flag_cell = format_cell(flags)
+        # Rows are formatted here, in one f-string each: this loop runs for every reading.
+        lines = []
         for cycle in range(alternation.cycles):
             for step_index, polarity in enumerate(self.polarities):
                 current = polarity * point.current_A
@@ -211,20 +217,20 @@ class Runner:
                 # switch at every step (common practice).
                 source.set_current(current)
                 self.clock.sleep(alternation.settle)
-                temperature_read, field_read, angle_read = self._readbacks()
+                readbacks = ",".join(map(format_cell, self._readbacks()))
+                head = f"{point.number},{attempt},{cycle},{step_index},"
+                middle = f"{setpoints},{current!r},{polarity},"
                 for repeat in range(per_step):
                     for channel_index, meter in enumerate(meters):
                         voltage = meter.read()
                         voltages[channel_index, cycle, step_index, repeat] = voltage
-                        rows.append((
-                            point.number, attempt, cycle, step_index, repeat,
-                            round(self.clock.now(), 6), self.clock.utc().isoformat(),
-                            setpoint_temperature, setpoint_field, setpoint_angle, current,
-                            polarity, self.channels[channel_index], voltage, temperature_read,
-                            field_read, angle_read, flags,
-                        ))
+                        lines.append(
+                            f"{head}{repeat},{round(self.clock.now(), 6)!r},"
+                            f"{self.clock.utc().isoformat()},{middle}{channels[channel_index]},"
+                            f"{voltage!r},{readbacks},{flag_cell}\n"
+                        )
         source.set_current(0.0)
-        self.readings.extend(rows)
+        self.readings.write_lines(lines)
         return voltages
 
     def check_point(self) -> None:

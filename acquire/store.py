@@ -44,6 +44,10 @@ class AppendTable:
     def extend(self, rows: Iterable[Sequence[object]]) -> None:
         self._file.writelines(",".join(map(format_cell, row)) + "\n" for row in rows)
 
+    def write_lines(self, lines: Iterable[str]) -> None:
+        """Rows already formatted by the caller, each ending in a newline."""
+        self._file.writelines(lines)
+
     def commit(self, durable: bool = True) -> None:
         """Flush to the operating system (survives a crash or kill); fsync also survives a
         power cut."""

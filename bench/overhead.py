@@ -23,6 +23,7 @@ from acquire.session import RunOptions, start_run
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
+REPEATS = 5
 
 
 def record(protocol: Path) -> list[tuple[str, str, str]]:
@@ -91,8 +92,12 @@ def flipsweep_run(protocol: Path) -> float:
 def main() -> None:
     protocol = Path(sys.argv[1]) if len(sys.argv) > 1 else ROOT / "protocols" / "angle_scan.yaml"
     calls = record(protocol)
-    bare = min(bare_loop(protocol, calls) for _ in range(2))
-    full = min(flipsweep_run(protocol) for _ in range(2))
+    # Interleaved repeats, best of each: other load on the machine slows single runs.
+    bare_times, full_times = [], []
+    for _ in range(REPEATS):
+        bare_times.append(bare_loop(protocol, calls))
+        full_times.append(flipsweep_run(protocol))
+    bare, full = min(bare_times), min(full_times)
     print(f"protocol            {protocol.name}")
     print(f"transactions        {len(calls)}")
     print(f"(a) bare pyvisa     {bare:.3f} s  ({len(calls) / bare:,.0f} transactions/s)")

@@ -68,6 +68,40 @@ class MeterState:
     range_V: float | None = None  # None: autorange
 
 
+@dataclass
+class Extremes:
+    """The most the instruments were asked to do (and the field and angle they read back) over
+    the world's life: a rehearsal's record of what a real rig would have been told. Unset
+    values stay None; magnitudes are absolute values. A setter records the value it was sent
+    before judging it, so a value the instrument refuses still shows; NaN is not a value and is
+    skipped. Each update is O(1)."""
+
+    current_A: float | None = None  # largest |level| set on the source
+    field_target_T: float | None = None  # largest |target| set on the field supply
+    field_read_T: float | None = None  # largest |field| read back
+    field_rate_T_per_s: float | None = None  # largest ramp rate set
+    angle_target_deg: tuple[float, float] | None = None  # (smallest, largest) rotator target
+    angle_read_deg: tuple[float, float] | None = None  # (smallest, largest) position read
+    temperature_setpoint_K: tuple[float, float] | None = None  # (lowest, highest) setpoint
+
+    @staticmethod
+    def larger(old: float | None, value: float) -> float | None:
+        if math.isnan(value):
+            return old
+        return value if old is None or value > old else old
+
+    @staticmethod
+    def spread(
+        old: tuple[float, float] | None, value: float
+    ) -> tuple[float, float] | None:
+        if math.isnan(value):
+            return old
+        if old is None:
+            return (value, value)
+        low, high = old
+        return (value, high) if value < low else (low, value) if value > high else old
+
+
 def _positive(value: float, what: str) -> float:
     if not (math.isfinite(value) and value > 0.0):
         raise ValueError(f"{what} must be > 0, got {value!r}")
@@ -110,9 +144,11 @@ class SimulatedWorld:
             self.time_constant_s,
         )
         self._applied: tuple[float, float] | None = None
+        self.extremes = Extremes()
 
     # -- current source ----------------------------------------------------------------
     def set_current(self, amperes: float) -> None:
+        self.extremes.current_A = Extremes.larger(self.extremes.current_A, abs(amperes))
         if not math.isfinite(amperes):
             raise ValueError(f"current must be finite, got {amperes!r}")
         self.source.level_A = amperes
@@ -175,26 +211,38 @@ class SimulatedWorld:
     # -- field, angle, temperature --------------------------------------------------------
     def set_field_target(self, tesla: float) -> None:
         self.field.retarget(self.clock.now(), tesla)
+        self.extremes.field_target_T = Extremes.larger(self.extremes.field_target_T, abs(tesla))
 
     def set_field_rate(self, tesla_per_s: float) -> None:
+        self.extremes.field_rate_T_per_s = Extremes.larger(
+            self.extremes.field_rate_T_per_s, tesla_per_s
+        )
         self.field.set_rate(self.clock.now(), _positive(tesla_per_s, "field ramp rate"))
 
     def field_T(self) -> float:
-        return self.field.value(self.clock.now())
+        tesla = self.field.value(self.clock.now())
+        self.extremes.field_read_T = Extremes.larger(self.extremes.field_read_T, abs(tesla))
+        return tesla
 
     def move_rotator(self, degrees: float) -> None:
         self.angle.retarget(self.clock.now(), degrees)
+        self.extremes.angle_target_deg = Extremes.spread(self.extremes.angle_target_deg, degrees)
 
     def set_rotator_speed(self, deg_per_s: float) -> None:
         self.angle.set_rate(self.clock.now(), _positive(deg_per_s, "rotator speed"))
 
     def angle_deg(self) -> float:
-        return self.angle.value(self.clock.now())
+        degrees = self.angle.value(self.clock.now())
+        self.extremes.angle_read_deg = Extremes.spread(self.extremes.angle_read_deg, degrees)
+        return degrees
 
     def rotator_moving(self) -> bool:
         return not self.angle.arrived(self.clock.now())
 
     def set_temperature_setpoint(self, kelvin: float) -> None:
+        self.extremes.temperature_setpoint_K = Extremes.spread(
+            self.extremes.temperature_setpoint_K, kelvin
+        )
         self.bath.retarget(self.clock.now(), _positive(kelvin, "temperature setpoint"))
 
     def set_temperature_rate(self, kelvin_per_s: float) -> None:
