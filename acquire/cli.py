@@ -128,10 +128,8 @@ def _commands() -> dict[str, Callable[[argparse.Namespace], int]]:
         "estimate": cmd_estimate,
         "schema": cmd_schema,
     }
-    try:
-        from acquire import cli_run
-    except ImportError:
-        return commands
+    from acquire import cli_run
+
     commands.update(cli_run.COMMANDS)
     EXTRA_COMMANDS.update(cli_run.ARGUMENTS)
     return commands

@@ -35,6 +35,11 @@ def _from_step(start: float, stop: float, step: float) -> np.ndarray:
             "use 'values: [...]' for a single value, or move start or stop",
         )
     count = math.floor(span / step * (1 + 1e-9) + 1e-9) + 1
+    if count == 1:
+        raise LoopSpecError(
+            "step", f"{step:g} is larger than the span {span:g} from start to stop, so the loop "
+            "has one value", "use a smaller step, or 'values: [...]' for a single value",
+        )
     if count > MAX_VALUES_PER_LOOP:
         raise LoopSpecError(
             "step", f"gives {count} values, more than {MAX_VALUES_PER_LOOP}", "use a larger step"

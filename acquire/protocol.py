@@ -60,6 +60,10 @@ class Sample(Strict):
     @field_validator("layers")
     @classmethod
     def one_carrier(cls, layers: list[Layer]) -> list[Layer]:
+        names = [layer.name for layer in layers]
+        repeated = sorted({name for name in names if names.count(name) > 1})
+        if repeated:
+            raise ValueError(f"layer name {repeated[0]!r} is used twice; name each layer once")
         carriers = [layer for layer in layers if layer.carrier]
         if len(carriers) > 1:
             raise ValueError("more than one layer has 'carrier: true'; mark only the heavy metal")
