@@ -25,9 +25,24 @@ KEY = ["point", "attempt", "channel", "cycle", "step", "repeat"]
 
 def start(protocol: Path, out: Path, seed: int = 5) -> subprocess.Popen[bytes]:
     return subprocess.Popen(
-        [sys.executable, "-m", "acquire.cli", "run", str(protocol), "--rig", str(RIG),
-         "--simulate", "--seed", str(seed), "--out", str(out), "--quiet"],
-        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=ROOT,
+        [
+            sys.executable,
+            "-m",
+            "acquire.cli",
+            "run",
+            str(protocol),
+            "--rig",
+            str(RIG),
+            "--simulate",
+            "--seed",
+            str(seed),
+            "--out",
+            str(out),
+            "--quiet",
+        ],
+        stdout=subprocess.DEVNULL,
+        stderr=subprocess.PIPE,
+        cwd=ROOT,
     )
 
 
@@ -58,10 +73,26 @@ def assert_complete(out: Path, points_total: int, channels: int, rows_per_point:
 def test_kill_minus_nine_at_random_moments_then_resume(tmp_path: Path) -> None:
     # Reference: the uninterrupted run's point set.
     reference = tmp_path / "reference"
-    assert main(["run", str(PROTOCOL), "--rig", str(RIG), "--simulate", "--seed", "5",
-                 "--out", str(reference), "--quiet"]) == 0
-    expected = pd.read_csv(reference / "points.csv")[["point", "channel", "current_A",
-                                                       "angle_deg", "field_T"]]
+    assert (
+        main(
+            [
+                "run",
+                str(PROTOCOL),
+                "--rig",
+                str(RIG),
+                "--simulate",
+                "--seed",
+                "5",
+                "--out",
+                str(reference),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
+    expected = pd.read_csv(reference / "points.csv")[
+        ["point", "channel", "current_A", "angle_deg", "field_T"]
+    ]
     chooser = random.Random(20261202)
     for trial in range(10):
         out = tmp_path / f"trial{trial}"
@@ -74,8 +105,9 @@ def test_kill_minus_nine_at_random_moments_then_resume(tmp_path: Path) -> None:
         assert_complete(out, 216, 2, 4 * 3 * 2 * 2)
         got = pd.read_csv(out / "points.csv")[expected.columns]
         pd.testing.assert_frame_equal(got.reset_index(drop=True), expected)
-        history = [entry["event"] for entry in json.loads((out / "run.json").read_text())
-                   ["history"]]
+        history = [
+            entry["event"] for entry in json.loads((out / "run.json").read_text())["history"]
+        ]
         assert history[0] == "start" and "resume" in history and history[-1] == "done"
 
 
@@ -100,8 +132,10 @@ def test_sigint_stops_safely_and_resume_completes(tmp_path: Path) -> None:
 def test_truncated_last_line_and_partial_point_are_handled(tmp_path: Path) -> None:
     out = tmp_path / "run"
     protocol = ROOT / "protocols" / "current_ladder.yaml"
-    assert main(["run", str(protocol), "--rig", str(RIG), "--simulate", "--out", str(out),
-                 "--quiet"]) == 0
+    assert (
+        main(["run", str(protocol), "--rig", str(RIG), "--simulate", "--out", str(out), "--quiet"])
+        == 0
+    )
     lines = (out / "readings.csv").read_text().splitlines(keepends=True)
     # Cut the file inside the 10th point's rows, in the middle of a line (a power cut).
     rows_per_point = 4 * 3 * 2 * 2
@@ -113,14 +147,28 @@ def test_truncated_last_line_and_partial_point_are_handled(tmp_path: Path) -> No
     assert set(aside["point"]) == {9} and len(aside) == 7  # kept, not deleted
 
 
-def test_resume_refuses_a_changed_protocol(tmp_path: Path, capsys: pytest.CaptureFixture[str]
-                                           ) -> None:
+def test_resume_refuses_a_changed_protocol(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     folder = tmp_path / "protocols"
     shutil.copytree(ROOT / "protocols", folder)
     protocol = folder / "current_ladder.yaml"
     out = tmp_path / "run"
-    assert main(["run", str(protocol), "--rig", str(folder / "rigs" / "simulated.yaml"),
-                 "--simulate", "--out", str(out), "--quiet"]) == 0
+    assert (
+        main(
+            [
+                "run",
+                str(protocol),
+                "--rig",
+                str(folder / "rigs" / "simulated.yaml"),
+                "--simulate",
+                "--out",
+                str(out),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
     base = folder / "base.yaml"
     base.write_text(base.read_text().replace("cycles: 4", "cycles: 5"))
     capsys.readouterr()
@@ -130,8 +178,9 @@ def test_resume_refuses_a_changed_protocol(tmp_path: Path, capsys: pytest.Captur
     assert error.count("\n") == 1
 
 
-def test_status_reports_progress_and_a_dead_process(tmp_path: Path,
-                                                    capsys: pytest.CaptureFixture[str]) -> None:
+def test_status_reports_progress_and_a_dead_process(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
     out = tmp_path / "run"
     process = start(PROTOCOL, out)
     wait_for_rows(out, process)

@@ -22,18 +22,33 @@ FIXTURES = Path(__file__).resolve().parent / "protocols"
 
 
 def run(protocol: Path, out: Path, seed: int = 3) -> int:
-    return main(["run", str(protocol), "--rig", str(RIG), "--simulate", "--seed", str(seed),
-                 "--out", str(out), "--quiet"])
+    return main(
+        [
+            "run",
+            str(protocol),
+            "--rig",
+            str(RIG),
+            "--simulate",
+            "--seed",
+            str(seed),
+            "--out",
+            str(out),
+            "--quiet",
+        ]
+    )
 
 
 def truth_model(protocol: Path, run_dir: Path) -> BilayerSample:
     """The simulated sample rebuilt from the protocol and the rig's recorded settings."""
     sample = load_protocol(protocol).protocol.sample
-    layers = [LayerSI(x.name, x.thickness, x.resistivity, x is sample.carrier)
-              for x in sample.layers]
+    layers = [
+        LayerSI(x.name, x.thickness, x.resistivity, x is sample.carrier) for x in sample.layers
+    ]
     rig_settings = json.loads((run_dir / "run.json").read_text())["rig"]["normalised"]
     parameters = SampleParameters.from_geometry(
-        sample.channel.length, sample.channel.width, layers,
+        sample.channel.length,
+        sample.channel.width,
+        layers,
         **sample_overrides(rig_settings["simulation"]),
     )
     return BilayerSample(parameters, "xy", seed=0)
@@ -43,8 +58,15 @@ def truth_model(protocol: Path, run_dir: Path) -> BilayerSample:
 def test_every_example_protocol_runs(protocol: Path, tmp_path: Path) -> None:
     out = tmp_path / "run"
     assert run(protocol, out) == 0
-    for name in ("readings.csv", "readings.csv-metadata.json", "points.csv",
-                 "points.csv-metadata.json", "run.json", "run.log", "status.json"):
+    for name in (
+        "readings.csv",
+        "readings.csv-metadata.json",
+        "points.csv",
+        "points.csv-metadata.json",
+        "run.json",
+        "run.log",
+        "status.json",
+    ):
         assert (out / name).is_file(), name
     loaded = load_protocol(protocol)
     points = pd.read_csv(out / "points.csv")
@@ -90,7 +112,9 @@ def test_unidirectional_ratio_agrees_with_simulated_truth(tmp_path: Path) -> Non
     for row in points.itertuples():
         model.apply_field(row.field_T, row.angle_deg)
         truth = model.expected("longitudinal", row.current_A, 300.0)
-        pull = (row.unidirectional_ratio - truth.unidirectional_ratio) / row.unidirectional_ratio_err
+        pull = (
+            row.unidirectional_ratio - truth.unidirectional_ratio
+        ) / row.unidirectional_ratio_err
         assert abs(pull) < 3, (row.point, pull)
         assert row.unidirectional_ratio == pytest.approx(truth.unidirectional_ratio, rel=0.05)
         # The even part as well: the sample's resistance with its Joule heating.
@@ -127,8 +151,9 @@ def test_standard_errors_are_honest_across_seeds(tmp_path: Path) -> None:
         for row in pd.read_csv(out / "points.csv").itertuples():
             model.apply_field(row.field_T, row.angle_deg)
             truth = model.expected("longitudinal", row.current_A, 300.0)
-            pulls.append((row.unidirectional_ohm - truth.unidirectional_ohm)
-                         / row.unidirectional_ohm_err)
+            pulls.append(
+                (row.unidirectional_ohm - truth.unidirectional_ohm) / row.unidirectional_ohm_err
+            )
     spread = float(np.std(pulls, ddof=1))
     # 20 cycles: Student's t with 19 degrees of freedom has SD sqrt(19/17) = 1.06; with 200
     # pulls the sample SD scatters by about 1.06/sqrt(400) = 0.05, so [0.8, 1.2] is > 3 sigma.

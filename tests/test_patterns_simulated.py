@@ -1,0 +1,101 @@
+"""Alternation patterns on the simulated rig: what a zero step and a symmetric pattern buy."""
+
+from __future__ import annotations
+
+from pathlib import Path
+
+import pandas as pd
+import pytest
+import yaml
+
+from acquire.cli import main
+from tests.test_run_simulated import truth_model
+
+ROOT = Path(__file__).resolve().parent.parent
+RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
+
+# 16 cycles: the standard error over cycles is then itself known to ~18 %, so a 3-sigma
+# window is a fair test (with 8 cycles Student's t tails make 3-sigma misses common).
+PROTOCOL = """extends: {base}
+name: pattern check
+alternation: {{pattern: "{pattern}", cycles: 16, settle: 20 ms}}
+readings: {{per_step: 2, channels: [vxx]}}
+loops:
+  - {{axis: field, values: [0.5 T]}}
+  - {{axis: angle, values: [90 deg, 270 deg]}}
+  - {{axis: current, values: [1 mA]}}
+"""
+
+
+def run_pattern(tmp_path: Path, pattern: str, simulation: dict[str, float]) -> tuple[Path, Path]:
+    rig = yaml.safe_load(RIG.read_text())
+    rig["simulation"] = {**rig.get("simulation", {}), **simulation}
+    rig_path = tmp_path / f"rig_{len(pattern)}.yaml"
+    rig_path.write_text(yaml.safe_dump(rig))
+    protocol = tmp_path / f"pattern_{pattern.replace('+', 'p').replace('-', 'm')}.yaml"
+    protocol.write_text(PROTOCOL.format(base=ROOT / "protocols" / "base.yaml", pattern=pattern))
+    out = tmp_path / f"run_{protocol.stem}"
+    assert (
+        main(
+            [
+                "run",
+                str(protocol),
+                "--rig",
+                str(rig_path),
+                "--simulate",
+                "--seed",
+                "9",
+                "--out",
+                str(out),
+                "--quiet",
+            ]
+        )
+        == 0
+    )
+    return protocol, out
+
+
+def test_zero_step_removes_a_thermoelectric_offset_ten_times_the_signal(tmp_path: Path) -> None:
+    offset = 15e-6  # V; the odd voltage at 1 mA is ~1.3 uV here, so about ten times smaller
+    results = {}
+    for pattern in ("+0-", "+-"):
+        protocol, out = run_pattern(tmp_path, pattern, {"thermoelectric_offset_V": offset})
+        model = truth_model(protocol, out)
+        rows = []
+        for row in pd.read_csv(out / "points.csv").itertuples():
+            model.apply_field(row.field_T, row.angle_deg)
+            truth = model.expected("longitudinal", row.current_A, 300.0)
+            rows.append(
+                (
+                    row.unidirectional_ohm - truth.unidirectional_ohm,
+                    row.unidirectional_ohm_err,
+                    truth.unidirectional_ohm,
+                )
+            )
+        results[pattern] = rows
+    for bias, error, truth in results["+0-"]:
+        assert abs(truth) * 1e-3 * 10 < offset  # the offset really is ~10x the odd voltage
+        assert abs(bias) < 3 * error
+    for bias, error, _ in results["+-"]:
+        # Without a zero step the offset reads as unidirectional: offset / I = 15 mOhm.
+        assert bias == pytest.approx(offset / 1e-3, rel=0.02)
+        assert abs(bias) > 100 * error
+
+
+def test_symmetric_pattern_cancels_a_linear_drift(tmp_path: Path) -> None:
+    drift = 2e-5  # V/s: a fast thermal drift, to make the '+-' bias obvious
+    found = {}
+    for pattern in ("+--+", "+-"):
+        protocol, out = run_pattern(tmp_path, pattern, {"drift_V_per_s": drift})
+        model = truth_model(protocol, out)
+        rows = []
+        for row in pd.read_csv(out / "points.csv").itertuples():
+            model.apply_field(row.field_T, row.angle_deg)
+            truth = model.expected("longitudinal", row.current_A, 300.0)
+            rows.append((row.resistance_ohm - truth.resistance_ohm, row.resistance_ohm_err))
+        found[pattern] = rows
+    for bias, error in found["+--+"]:
+        assert abs(bias) < 3 * error  # only noise is left
+    for bias, error in found["+-"]:
+        # V- is read one step after V+: R is low by drift x (step time) / (2 I).
+        assert bias < 0 and abs(bias) > 10 * error
