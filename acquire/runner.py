@@ -115,6 +115,7 @@ class Runner:
                                                     "angle": None}
         self.used_axes = {loop.axis for loop in self.protocol.loops}
         self.flags_pending: set[str] = set()
+        self.tripped = False
         # 0: fsync at every point (a real night). A dry run on the virtual clock measures
         # thousands of points a second; there it fsyncs at most every `sync_interval_s` of
         # wall time, and still flushes every point, so a crash or kill loses nothing.
@@ -210,6 +211,11 @@ class Runner:
         flag_cell = format_cell(flags)
         # Rows are formatted here, in one f-string each: this loop runs for every reading.
         lines = []
+        # Compliance is a live state: ask while current flows, at the first and the last
+        # nonzero step of the point (two transactions, not one per step).
+        nonzero = [index for index, polarity in enumerate(self.polarities) if polarity]
+        probes = {(0, nonzero[0]), (alternation.cycles - 1, nonzero[-1])}
+        self.tripped = False
         for cycle in range(alternation.cycles):
             for step_index, polarity in enumerate(self.polarities):
                 current = polarity * point.current_A
@@ -229,12 +235,14 @@ class Runner:
                             f"{self.clock.utc().isoformat()},{middle}{channels[channel_index]},"
                             f"{voltage!r},{readbacks},{flag_cell}\n"
                         )
+                if (cycle, step_index) in probes:
+                    self.tripped = self.tripped or source.compliance_tripped()
         source.set_current(0.0)
         self.readings.write_lines(lines)
         return voltages
 
     def check_point(self) -> None:
-        if self.instruments.source.compliance_tripped():
+        if self.tripped:
             raise PointProblem("compliance", "the current source hit its compliance voltage")
         for instrument in (self.instruments.source, *self.instruments.voltmeters.values()):
             problems = instrument.errors()
