@@ -1,4 +1,4 @@
-"""Progress for the person watching: a bar with an ETA that learns the real pace, and status.json."""
+"""Progress for the person watching: a bar whose ETA learns the real pace, and status.json."""
 
 from __future__ import annotations
 

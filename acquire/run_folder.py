@@ -89,7 +89,8 @@ class RunFolder:
         # Twice the estimate: reduction, fits and figures write beside the readings.
         if free < 2 * needed_bytes:
             raise InputError(
-                f"only {free / 1e6:.0f} MB free, the run needs about {2 * needed_bytes / 1e6:.0f} MB",
+                f"only {free / 1e6:.0f} MB free, the run needs about "
+                f"{2 * needed_bytes / 1e6:.0f} MB",
                 file=str(self.path), key=("--out",), fix="free space or choose another disk",
             )
 
@@ -102,7 +103,9 @@ class RunFolder:
                 fix="give the folder a run was started in",
             ) from None
         except json.JSONDecodeError as error:
-            raise InputError(f"run.json is damaged ({error.msg})", file=str(self.run_json)) from None
+            raise InputError(
+                f"run.json is damaged ({error.msg})", file=str(self.run_json)
+            ) from None
 
     def write_run_json(self, document: dict[str, Any]) -> None:
         atomic_write_text(self.run_json, json.dumps(document, indent=2, default=str) + "\n")

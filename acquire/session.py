@@ -1,4 +1,4 @@
-"""Starting, resuming and ending a run: the shell around the runner (instruments, files, signals)."""
+"""Starting and ending a run: the shell around the runner (instruments, files, signals)."""
 
 from __future__ import annotations
 
@@ -118,10 +118,9 @@ class SweepLog:
 
 
 def _simulation(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, seed: int | None):
+    from sim_instruments.sample_model import BilayerSample, LayerSI, SampleParameters
     from sim_instruments.simulated_rig import open_simulated_rig
     from sim_instruments.world import sample_overrides
-
-    from sim_instruments.sample_model import BilayerSample, LayerSI, SampleParameters
 
     sample = loaded.protocol.sample
     layers = [LayerSI(layer.name, layer.thickness, layer.resistivity, layer is sample.carrier)

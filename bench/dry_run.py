@@ -55,7 +55,8 @@ def main() -> None:
         short_protocol = write_protocol(folder, 18)  # 108 points
         run(short_protocol, folder, "warm-up")  # imports and caches out of the timing
         seconds = run(long_protocol, folder, "long")
-        readings = sum(1 for _ in open(folder / "long" / "readings.csv")) - 1
+        with open(folder / "long" / "readings.csv", encoding="utf-8") as handle:
+            readings = sum(1 for _ in handle) - 1
         short_peak = peak_memory(short_protocol, folder, "short-traced")
         long_peak = peak_memory(long_protocol, folder, "long-traced")
     print(f"readings            {readings}")

@@ -66,7 +66,7 @@ def bare_loop(protocol: Path, calls: list[tuple[str, str, str]]) -> float:
         sample.channel.length, sample.channel.width, layers), loaded.protocol.rotation_plane, 1)
     simulated = open_simulated_rig(rig.rig, model, VirtualClock())
     handles = {}
-    for name, spec in rig.rig.instruments.items():
+    for spec in rig.rig.instruments.values():
         handle = simulated.resource_manager.open_resource(spec.resource)
         handle.read_termination = spec.read_termination
         handle.write_termination = spec.write_termination
