@@ -132,6 +132,10 @@ def _commands() -> dict[str, Callable[[argparse.Namespace], int]]:
 
     commands.update(cli_run.COMMANDS)
     EXTRA_COMMANDS.update(cli_run.ARGUMENTS)
+    from acquire import cli_serve
+
+    commands.update(cli_serve.COMMANDS)
+    EXTRA_COMMANDS.update(cli_serve.ARGUMENTS)
     return commands
 
 
@@ -154,6 +158,12 @@ def main(argv: Sequence[str] | None = None) -> int:
     except KeyboardInterrupt:
         print("interrupted", file=sys.stderr)
         return EXIT_INTERRUPTED
+    except BrokenPipeError:
+        # The reader went away (`flipsweep check --show | head`): not an error of ours.
+        import os
+
+        os.dup2(os.open(os.devnull, os.O_WRONLY), sys.stdout.fileno())
+        return EXIT_DONE
     except Exception as error:  # a bug: one line for the user, the traceback with --debug
         if args.debug:
             raise

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import warnings
 from pathlib import Path
 
 
@@ -10,7 +11,14 @@ def list_instruments(rig_path: Path | None) -> int:
 
     if rig_path is None:
         manager = resource_manager_for("@py")
-        for resource in manager.list_resources():
+        with warnings.catch_warnings():
+            # pyvisa-py warns about optional discovery packages; the survey goes on without.
+            warnings.simplefilter("ignore")
+            resources = manager.list_resources()
+        if not resources:
+            print("no VISA resources found (LAN instruments on raw sockets are not discoverable;"
+                  " list them in a rig file and use --rig)")
+        for resource in resources:
             print(f"{resource}  {_identity(manager, resource)}")
         return 0
     from acquire.load import load_rig
