@@ -354,7 +354,7 @@ def test_heating_without_any_dR_dT_says_what_is_missing() -> None:
         build_fits_table(one_temperature, RunContext()), "heating", "temperature_rise_K_per_mA2"
     )
     assert math.isnan(rise["value"].iloc[0])
-    assert "dR_dT_ohm_per_K" in rise["note"].iloc[0]
+    assert "--dr-dt" in rise["note"].iloc[0]
 
 
 def test_amplitudes_are_tabulated_per_temperature() -> None:
