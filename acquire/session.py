@@ -107,10 +107,12 @@ class SweepLog:
         if self.rows:
             resistances = [r for r, _ in self.rows]
             ratios = [u * 1e6 for _, u in self.rows]
+            count = len(self.rows)
             log.info(
-                "sweep %d (from point %d): %d points, R %.6g..%.6g ohm, "
-                "unidirectional %+.2f..%+.2f ppm", self.sweep, self.first_point, len(self.rows),
-                min(resistances), max(resistances), min(ratios), max(ratios),
+                "sweep %d (from point %d): %d point%s, R %.6g..%.6g ohm, "
+                "unidirectional %+.2f..%+.2f ppm", self.sweep, self.first_point, count,
+                "" if count == 1 else "s", min(resistances), max(resistances), min(ratios),
+                max(ratios),
             )
         else:
             log.info("sweep %d (from point %d): no point measured", self.sweep, self.first_point)
