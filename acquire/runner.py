@@ -4,11 +4,13 @@ from __future__ import annotations
 
 import contextlib
 import dataclasses
+import functools
 import logging
+import threading
 import time
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
-from typing import Any
+from typing import Any, TypeVar
 
 import numpy as np
 
@@ -25,6 +27,16 @@ from drivers.interface import CommunicationError, InstrumentError
 log = logging.getLogger("flipsweep")
 
 RETRY_BACKOFF_S = (1.0, 4.0, 15.0)  # transient faults: wait, reconnect, measure again
+# What a run survives by waiting, reconnecting and doing the step again: a VISA timeout or I/O
+# error, and an unreadable reply (line noise reaches the drivers as InstrumentError). A fault
+# that persists through every backoff stops the run.
+TRANSIENT_FAULTS = (CommunicationError, InstrumentError)
+# A shutdown call is bounded by its instrument's VISA timeout plus this much for the thread that
+# makes it to start and report back.
+SHUTDOWN_GRACE_S = 0.5
+DEFAULT_TIMEOUT_S = 5.0  # an instrument the rig does not describe (acquire.rig's default)
+
+Result = TypeVar("Result")
 
 
 class PointProblem(Exception):
@@ -84,6 +96,9 @@ class Instruments:
 
 
 class Runner:
+    # Seconds to wait before each retry of a step hit by a transient fault; one retry per entry.
+    retry_backoff_s: tuple[float, ...] = RETRY_BACKOFF_S
+
     def __init__(
         self,
         loaded: LoadedProtocol,
@@ -121,9 +136,14 @@ class Runner:
         # wall time, and still flushes every point, so a crash or kill loses nothing.
         self.sync_interval_s = sync_interval_s
         self._last_sync = 0.0
+        self._disconnected: set[str] = set()  # names whose reconnect failed
 
     # -- configuration ------------------------------------------------------------------
     def configure(self) -> None:
+        # Configuring is idempotent, so a transient fault repeats all of it.
+        self._with_retries("configuration", self._configure_once)
+
+    def _configure_once(self) -> None:
         spec_of = self.rig.rig.instruments
         source_name = self.instruments.names["current_source"]
         self.instruments.source.configure(spec_of[source_name].compliance)
@@ -259,13 +279,10 @@ class Runner:
             try:
                 voltages = self.measure(point, attempt, "|".join(flags))
                 self.check_point()
-            except CommunicationError as error:
+            except TRANSIENT_FAULTS as error:
                 transient_failures += 1
-                if transient_failures > len(RETRY_BACKOFF_S):
-                    raise StopRun(f"persistent communication fault: {error}") from error
-                log.warning("point %d: %s; retry %d after reconnect", point.number, error,
-                            transient_failures)
-                self._recover(RETRY_BACKOFF_S[transient_failures - 1])
+                self._rest_current()
+                self._after_transient(f"point {point.number}", error, transient_failures)
                 attempt += 1
                 flags = sorted({*flags, "retry"})
                 continue
@@ -289,13 +306,53 @@ class Runner:
             result = self._reduce(point, voltages)
             return PointOutcome(point, result, "|".join(flags))
 
-    def _recover(self, backoff_s: float) -> None:
-        self.clock.sleep(backoff_s)
-        for instrument in self.instruments.all():
+    # -- transient faults ---------------------------------------------------------------
+    def _with_retries(self, what: str, action: Callable[[], Result]) -> Result:
+        """`action()`, done again after each transient fault; the next point is flagged."""
+        failures = 0
+        while True:
             try:
+                return action()
+            except TRANSIENT_FAULTS as error:
+                failures += 1
+                self._after_transient(what, error, failures)
+                self.flags_pending.add("retry")
+
+    def _after_transient(self, what: str, error: Exception, failures: int) -> None:
+        """Back off and reconnect before retry number `failures`, or stop the run."""
+        budget = len(self.retry_backoff_s)
+        if failures > budget:
+            raise StopRun(f"{what}: {error}; still failing after {budget} retries "
+                          "with reconnect") from error
+        backoff = self.retry_backoff_s[failures - 1]
+        affected = self._affected(error)
+        log.warning("%s: %s; retry %d of %d in %g s after reconnecting %s", what, error,
+                    failures, budget, backoff, ", ".join(i.name for i in affected))
+        self._recover(backoff, affected)
+
+    def _affected(self, error: Exception) -> list[Any]:
+        """The instrument the fault names; all of them if it names none of the rig's."""
+        every = list(self.instruments.all())
+        named = [i for i in every if i.name == getattr(error, "instrument", None)]
+        return named or every
+
+    def _recover(self, backoff_s: float, instruments: list[Any]) -> None:
+        self.waiter.heartbeat()
+        self.clock.sleep(backoff_s)
+        for instrument in instruments:
+            try:
+                # A fresh session also drops a late reply still on its way to the old one,
+                # which the next query would otherwise read as its own answer.
                 instrument.reconnect()
-            except CommunicationError as error:
+                self._disconnected.discard(instrument.name)
+            except Exception as error:  # a VISA library may raise anything for a dead address
+                self._disconnected.add(instrument.name)
                 log.warning("reconnect of %s failed: %s", instrument.name, error)
+
+    def _rest_current(self) -> None:
+        """Zero current while waiting to retry, as between points (best effort, no retry)."""
+        with contextlib.suppress(*TRANSIENT_FAULTS):
+            self.instruments.source.set_current(0.0)
 
     def _clear_errors(self) -> None:
         for instrument in self.instruments.all():
@@ -340,7 +397,8 @@ class Runner:
         for step in self.steps(start_point):
             if isinstance(step, Move):
                 try:
-                    self.move(step)
+                    self._with_retries(f"move {step.axis} to {step.value:g}",
+                                       functools.partial(self.move, step))
                     pending_skip = False
                 except WaitTimeout as timeout:
                     action = self.protocol.on_problem.wait_timeout
@@ -373,24 +431,59 @@ class Runner:
     def shutdown(self) -> list[str]:
         """The safe state: current to zero and output off first, then field, then temperature.
 
-        Every call is attempted even if an earlier one fails; failures are returned for the log.
+        Every call is attempted even if an earlier one fails, once (no retries), and each is
+        bounded by its instrument's VISA timeout even if the instrument no longer answers; an
+        instrument that did not answer in time gets no further call. Failures are returned for
+        the log.
         """
         problems: list[str] = []
+        silent: set[str] = set()
 
-        def attempt(what: str, action: Callable[[], object]) -> None:
+        def attempt(what: str, instrument: Any, action: Callable[[], object]) -> None:
+            if instrument.name in silent:
+                problems.append(f"{what}: skipped, {instrument.name} did not answer")
+                return
+            if instrument.name in self._disconnected:
+                # Its session was lost in a failed reconnect: one new one, or nothing works.
+                self._disconnected.discard(instrument.name)
+                attempt(f"reopen {instrument.name}", instrument, instrument.reconnect)
+            self._bounded_call(what, instrument, action, problems, silent)
+
+        source = self.instruments.source
+        attempt("current to zero", source, lambda: source.set_current(0.0))
+        attempt("output off", source, lambda: source.set_output(False))
+        finish = self.protocol.finish
+        magnet = self.instruments.field
+        if finish.field == "zero" and magnet is not None:
+            attempt("field to zero", magnet, lambda: magnet.set_target(0.0))
+        cryostat = self.instruments.temperature
+        if finish.temperature != "hold" and cryostat is not None:
+            target = float(finish.temperature)
+            attempt("temperature setpoint", cryostat, lambda: cryostat.set_setpoint(target))
+        return problems
+
+    def _bounded_call(self, what: str, instrument: Any, action: Callable[[], object],
+                      problems: list[str], silent: set[str]) -> None:
+        """`action()` in a helper thread, abandoned once the instrument's timeout has passed.
+
+        A VISA write has no timeout of its own (a full send buffer blocks it) and a user's
+        driver may block anywhere: the thread is what bounds the shutdown in time.
+        """
+        spec = self.rig.rig.instruments.get(instrument.name)
+        bound_s = (spec.timeout if spec is not None else DEFAULT_TIMEOUT_S) + SHUTDOWN_GRACE_S
+        failure: list[BaseException] = []
+
+        def call() -> None:
             try:
                 action()
             except Exception as error:  # the instrument may be gone; keep making the rest safe
-                problems.append(f"{what}: {error}")
+                failure.append(error)
 
-        source = self.instruments.source
-        attempt("current to zero", lambda: source.set_current(0.0))
-        attempt("output off", lambda: source.set_output(False))
-        finish = self.protocol.finish
-        if finish.field == "zero" and self.instruments.field is not None:
-            attempt("field to zero", lambda: self.instruments.field.set_target(0.0))
-        if finish.temperature != "hold" and self.instruments.temperature is not None:
-            target = float(finish.temperature)
-            attempt("temperature setpoint", lambda: self.instruments.temperature.set_setpoint(
-                target))
-        return problems
+        worker = threading.Thread(target=call, name=f"shutdown: {what}", daemon=True)
+        worker.start()
+        worker.join(bound_s)
+        if worker.is_alive():
+            silent.add(instrument.name)
+            problems.append(f"{what}: no answer from {instrument.name} within {bound_s:g} s")
+        elif failure:
+            problems.append(f"{what}: {failure[0]}")
