@@ -9,6 +9,7 @@ becomes InstrumentError naming the instrument, the command and the instrument's 
 from __future__ import annotations
 
 import contextlib
+import socket
 from collections import deque
 from typing import Any
 
@@ -63,6 +64,32 @@ class Transport:
             raise CommunicationError(
                 self.name, f"open {self.spec.resource}", _describe_fault(error, self.spec.timeout)
             ) from error
+        self._send_small_messages_at_once()
+
+    def _send_small_messages_at_once(self) -> None:
+        """Raw LAN sockets: switch Nagle's algorithm off.
+
+        With it on, a short command waits for the previous one's acknowledgement (~40 ms of
+        delayed ACK), so a source could still be changing its current while another instrument
+        already reads: the reading would silently belong to the wrong polarity.
+        """
+        if not self.spec.resource.upper().endswith("::SOCKET"):
+            return
+        try:
+            self._session.set_visa_attribute(
+                constants.ResourceAttribute.tcpip_nodelay, constants.VI_TRUE
+            )
+            return
+        except Exception:  # backends differ; fall back to the socket itself
+            pass
+        # pyvisa-py does not take the attribute for raw sockets but exposes the socket.
+        library_session = getattr(self._session.visalib, "sessions", {}).get(
+            self._session.session
+        )
+        raw_socket = getattr(library_session, "interface", None)
+        if isinstance(raw_socket, socket.socket):
+            with contextlib.suppress(OSError):
+                raw_socket.setsockopt(socket.IPPROTO_TCP, socket.TCP_NODELAY, 1)
 
     def close(self) -> None:
         session, self._session = self._session, None

@@ -101,19 +101,6 @@ def _looks_like_query(message: bytes) -> bool:
     return b"?" in message
 
 
-def _acknowledge_at_once(sock: socket.socket) -> None:
-    """Acknowledge received bytes at once (Linux; reset by the kernel, so set after every read).
-
-    A client with Nagle's algorithm on (pyvisa-py's default for sockets) holds a second command
-    to the same instrument until the first is acknowledged; with the usual delayed ACK that is
-    tens of milliseconds, long enough for a later query to another instrument to overtake it.
-    """
-    quick_ack = getattr(socket, "TCP_QUICKACK", None)
-    if quick_ack is not None:
-        with contextlib.suppress(OSError):
-            sock.setsockopt(socket.IPPROTO_TCP, quick_ack, 1)
-
-
 class _RigDumper(yaml.SafeDumper):
     """Writes terminations as "\\n" rather than as folded blank lines."""
 
@@ -339,7 +326,6 @@ class SocketRig:
                 self._drop(connection)  # the client closed the connection
                 return []
             connection.pending += chunk
-        _acknowledge_at_once(connection.sock)
         termination = connection.instrument.query_termination
         messages = []
         while (end := connection.pending.find(termination)) >= 0:
