@@ -24,8 +24,9 @@ class Clock(Protocol):
 
 
 class RealClock:
-    def __init__(self) -> None:
-        self._start = time.monotonic()
+    def __init__(self, offset_s: float = 0.0) -> None:
+        # A resumed run continues its run clock where the interrupted one stopped.
+        self._start = time.monotonic() - offset_s
         self._start_utc = datetime.now(timezone.utc)
 
     def now(self) -> float:

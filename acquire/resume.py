@@ -102,11 +102,12 @@ def resume_run(out: Path, progress: bool = True) -> int:
                          seed=options_record.get("seed"),
                          realtime=options_record.get("realtime", False), progress=progress)
     clock: Clock
+    resumed_at = _last_time(folder, last_clock)
     if options.simulate and not options.realtime:
         clock = VirtualClock()
-        clock.sleep(_last_time(folder, last_clock))
+        clock.sleep(resumed_at)
     else:
-        clock = RealClock()
+        clock = RealClock(offset_s=resumed_at)
     seed = None if options.seed is None else options.seed + SEED_STRIDE_PER_RESUME * (resumes + 1)
     if start_point >= estimated.points:
         print(f"run {folder.path}: all {estimated.points} points already done")

@@ -307,6 +307,13 @@ class Runner:
             return PointOutcome(point, result, "|".join(flags))
 
     # -- transient faults ---------------------------------------------------------------
+    def identities(self, opened: dict[str, Any]) -> dict[str, str]:
+        """Each opened instrument's *IDN? reply, for run.json (the run's first queries)."""
+        return {
+            name: self._with_retries(f"identify {name}", driver.identify)
+            for name, driver in opened.items()
+        }
+
     def _with_retries(self, what: str, action: Callable[[], Result]) -> Result:
         """`action()`, done again after each transient fault; the next point is flagged."""
         failures = 0

@@ -182,14 +182,14 @@ def _execute(
         with signals_raise_interrupt():
             opened, simulated = _open(loaded, rig, clock, options, seed)
             instruments = Instruments.from_opened(rig, opened, loaded.protocol.readings.channels)
-            document["instruments"] = {name: driver.identify() for name, driver in opened.items()}
-            if simulated is not None:
-                document["simulation"] = simulated.truth()
-            folder.write_run_json(document)
             runner = Runner(loaded, rig, instruments, clock, readings, points,
                             on_point=lambda o: (progress.point_done(o), sweeps.add(o)),
                             heartbeat=progress.heartbeat,
                             sync_interval_s=DRY_RUN_SYNC_S if virtual else 0.0)
+            document["instruments"] = runner.identities(opened)
+            if simulated is not None:
+                document["simulation"] = simulated.truth()
+            folder.write_run_json(document)
             progress.start(start_point)
             log.info("starting at point %d of %d", start_point, estimated.points)
             runner.configure()
