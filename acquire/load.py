@@ -368,6 +368,11 @@ def check_pair(protocol: LoadedProtocol, rig: LoadedRig) -> None:
                 f"sweeps {loop.axis} but rig {rig.rig.name!r} has no {role} instrument",
                 ("loops", index, "axis"), f"add a {role} to the rig or remove this loop",
             )
+    if rig.rig.simulation:
+        # Settings for simulated runs: a typo there should fail now, not at the rehearsal.
+        from sim_instruments.for_protocol import sample_for
+
+        sample_for(protocol, rig, seed=None)
     if protocol.protocol.finish.temperature != "hold" and not rig.rig.by_role("temperature"):
         raise source.error(
             "sets a finish temperature but the rig has no temperature instrument",

@@ -119,32 +119,15 @@ class SweepLog:
         self.rows = []
 
 
-def _simulation(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, seed: int | None):
-    from sim_instruments.sample_model import BilayerSample, LayerSI, SampleParameters
-    from sim_instruments.simulated_rig import open_simulated_rig
-    from sim_instruments.world import sample_overrides
-
-    sample = loaded.protocol.sample
-    layers = [LayerSI(layer.name, layer.thickness, layer.resistivity, layer is sample.carrier)
-              for layer in sample.layers]
-    overrides = sample_overrides(rig.rig.simulation)
-    try:
-        parameters = SampleParameters.from_geometry(
-            sample.channel.length, sample.channel.width, layers, **overrides
-        )
-    except (TypeError, ValueError) as error:
-        raise rig.document.source.error(str(error), ("simulation",)) from None
-    model = BilayerSample(parameters, loaded.protocol.rotation_plane, seed)
-    return open_simulated_rig(rig.rig, model, clock)
-
-
 def _open(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, options: RunOptions,
           seed: int | None) -> tuple[dict[str, Any], Any]:
     from drivers.factory import open_instruments
     from drivers.visa_library import resource_manager_for
 
     if options.simulate:
-        simulated = _simulation(loaded, rig, clock, seed)
+        from sim_instruments.for_protocol import simulate
+
+        simulated = simulate(loaded, rig, clock, seed)
         return open_instruments(rig.rig, simulated.resource_manager), simulated
     manager = resource_manager_for(rig.rig.visa_library, rig.rig, rig.path.parent)
     return open_instruments(rig.rig, manager), None
@@ -235,6 +218,10 @@ def start_run(protocol_path: Path, rig_path: Path, out: Path, options: RunOption
     rig = load_rig(rig_path)
     check_pair(loaded, rig)
     estimated = estimate(loaded, rig)
+    if options.simulate:
+        from sim_instruments.for_protocol import sample_for
+
+        sample_for(loaded, rig, options.seed)  # bad simulation settings: exit 2 before any file
     folder = RunFolder(out)
     folder.prepare_new(estimated.data_bytes)
     clock: Clock = VirtualClock() if options.simulate and not options.realtime else RealClock()

@@ -138,7 +138,7 @@ class SocketRig:
         self, protocol: Path | LoadedProtocol, rig: Path | LoadedRig, *, port_base: int = 0,
         seed: int | None = None, faults: FaultPlan | None = None,
     ) -> None:
-        from acquire.session import _simulation  # the same world as `run --simulate`
+        from sim_instruments.for_protocol import simulate  # the same world as `run --simulate`
 
         self.protocol = protocol if isinstance(protocol, LoadedProtocol) else load_protocol(
             protocol)
@@ -156,7 +156,7 @@ class SocketRig:
             raise InputError(problem, key=(option,), fix="see `flipsweep serve --help`")
         self.port_base = port_base
         self.clock = RealClock()
-        self.simulation = _simulation(self.protocol, self.rig, self.clock, seed)
+        self.simulation = simulate(self.protocol, self.rig, self.clock, seed)
         self.world: SimulatedWorld = self.simulation.world
         self.faults = FaultInjector(self.plan, instruments)
         devices = self.simulation.resource_manager.visalib.devices  # type: ignore[attr-defined]
