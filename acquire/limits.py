@@ -115,6 +115,15 @@ def check_limits(loaded: LoadedProtocol, rig: LoadedRig | None) -> LimitReport:
                     f"temperature {temperature:g} K exceeds the sample limit "
                     f"{protocol.limits.temperature_max:g} K", "lower it",
                 )
+    if rig is not None:
+        from acquire.command_text import check_command_text
+
+        finish = protocol.finish.temperature
+        temperatures = _values(loaded, "temperature") + (() if finish == "hold" else (finish,))
+        check_command_text(loaded, rig, {
+            "current": currents, "field": _values(loaded, "field"),
+            "angle": _values(loaded, "angle"), "temperature": temperatures,
+        })
     return LimitReport(peak, geometry.densities(peak), expected_voltage, compliance,
                        tuple(warnings))
 

@@ -27,7 +27,8 @@ class DialectCurrentSource(DialectDriver):
 
     def set_current(self, amperes: float) -> None:
         limit = self.current_limit_A
-        if limit is not None and abs(amperes) > limit:
+        sent = self.transport.dialect.sent_value("set_current", amperes)
+        if limit is not None and max(abs(amperes), abs(sent)) > limit:
             raise self._refuse(
                 "set_current", amperes,
                 f"refused: {amperes:g} A exceeds the rig's limit {limit:g} A",

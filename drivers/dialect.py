@@ -66,6 +66,39 @@ class Dialect:
             raise ValueError(f"{self.role} command {name!r} needs a value")
         return template.format(value=value, per_minute=value * VALUE_FIELDS["per_minute"])
 
+    def sent_value(self, name: str, value: float) -> float:
+        """The number the instrument will read from the command text, in SI units.
+
+        A template's precision rounds: `{value:.2g}` sends 1.26 mA as 0.0013. Limits are
+        checked against this number, not against the float before formatting.
+        """
+        field_name = self.value_fields[name]
+        if field_name is None:
+            return value
+        scale = VALUE_FIELDS[field_name]
+        for _, used, spec, conversion in string.Formatter().parse(self.commands[name]):
+            if used == field_name:
+                scaled = value * scale
+                if conversion == "r":
+                    text = repr(scaled)
+                elif conversion == "s":
+                    text = str(scaled)
+                else:
+                    text = format(scaled, spec or "")
+                return float(text) / scale
+        return value
+
+    def render_not_above(self, name: str, value: float) -> str:
+        """The command for `value`, rounded toward zero where the template's precision would
+        round it up: for rates, where a hair slower is always safe."""
+        target = value
+        for attempt in range(64):
+            sent = self.sent_value(name, target)
+            if abs(sent) <= abs(value):
+                return self.render(name, target)
+            target -= (sent - value) * 2.0**attempt
+        raise ValueError(f"{self.role} command {name!r} cannot send {value!r} without exceeding it")
+
 
 def value_field(template: str) -> str | None:
     """The value field a template uses, or None; ValueError if it uses anything else."""

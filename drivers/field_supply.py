@@ -28,12 +28,15 @@ class DialectFieldSupply(DialectDriver):
             )
         # Without a rate command the supply ramps at the rate set on the instrument itself.
         if self._supports("ramp_rate"):
-            self.transport.send("ramp_rate", ramp_rate_T_per_s)
+            # A rate equal to the limit must not round up past it in the command text.
+            command = self.transport.dialect.render_not_above("ramp_rate", ramp_rate_T_per_s)
+            self.transport.write_text(command)
         self.transport.check_errors()
 
     def set_target(self, tesla: float) -> None:
         limit = self.field_limit_T
-        if limit is not None and abs(tesla) > limit:
+        sent = self.transport.dialect.sent_value("set_target", tesla)
+        if limit is not None and max(abs(tesla), abs(sent)) > limit:
             raise self._refuse(
                 "set_target", tesla, f"refused: {tesla:g} T exceeds the rig's limit {limit:g} T"
             )
