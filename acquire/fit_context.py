@@ -15,6 +15,8 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from acquire.tables import POINT_COLUMNS
+
 
 @dataclass(frozen=True)
 class RunContext:
@@ -99,25 +101,6 @@ def _layer(entry: Mapping[str, Any]) -> dict[str, Any]:
     }
 
 
-POINT_COLUMNS: tuple[str, ...] = (
-    "point",
-    "temperature_K",
-    "field_T",
-    "angle_deg",
-    "current_A",
-    "current_density_A_m2",
-    "channel",
-    "n_cycles",
-    "resistance_ohm",
-    "resistance_ohm_err",
-    "unidirectional_ohm",
-    "unidirectional_ohm_err",
-    "unidirectional_ratio",
-    "unidirectional_ratio_err",
-    "offset_V",
-    "offset_V_err",
-    "flags",
-)
 
 
 def read_points(path: Path) -> pd.DataFrame:

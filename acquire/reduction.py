@@ -17,6 +17,7 @@ import numpy as np
 import pandas as pd
 
 from acquire.protocol import PATTERN_SYMBOLS
+from acquire.tables import POINT_COLUMNS
 
 READING_KEY_COLUMNS = ("point", "attempt", "channel", "cycle", "step", "repeat")
 SETPOINT_COLUMNS = ("temperature_K", "field_T", "angle_deg")
@@ -80,12 +81,6 @@ def reduce_blocks(voltages: np.ndarray, pattern: str, current_A: np.ndarray) -> 
     )
 
 
-POINT_COLUMNS = (
-    "point", "temperature_K", "field_T", "angle_deg", "current_A", "current_density_A_m2",
-    "channel", "n_cycles", "resistance_ohm", "resistance_ohm_err", "unidirectional_ohm",
-    "unidirectional_ohm_err", "unidirectional_ratio", "unidirectional_ratio_err", "offset_V",
-    "offset_V_err", "flags",
-)
 
 
 def _join_flags(flags: pd.Series, keys: pd.DataFrame) -> pd.Series:

@@ -45,3 +45,5 @@ POINT_COLUMN_SPECS = [
     Column("offset_V_err", "double", "V", "standard error over cycles"),
     Column("flags", "string", "", "'|'-separated flags of the point's readings"),
 ]
+
+POINT_COLUMNS: tuple[str, ...] = tuple(column.name for column in POINT_COLUMN_SPECS)

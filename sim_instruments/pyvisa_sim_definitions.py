@@ -26,6 +26,7 @@ from acquire.rig import Instrument, Rig
 from drivers.dialect import ERROR_QUERY, Dialect, dialect_for
 from drivers.replies import FlagReply
 from sim_instruments.reply_text import reply_writer
+from sim_instruments.yaml_text import TerminationSafeDumper
 
 SPEC_VERSION = "1.1"
 GENERIC_DEFINITIONS = Path(__file__).with_name("generic.yaml")
@@ -151,21 +152,11 @@ def rig_definitions(rig: Rig) -> dict[str, Any]:
     return {"spec": SPEC_VERSION, "devices": devices, "resources": resources}
 
 
-class _DefinitionsDumper(yaml.SafeDumper):
-    """Writes terminations as "\\n" rather than as folded blank lines."""
-
-
-def _represent_text(dumper: yaml.SafeDumper, text: str) -> yaml.ScalarNode:
-    style = '"' if any(char in text for char in "\r\n\t") else None
-    return dumper.represent_scalar("tag:yaml.org,2002:str", text, style=style)
-
-
-_DefinitionsDumper.add_representer(str, _represent_text)
 
 
 def definitions_text(rig: Rig) -> str:
     body = yaml.dump(
-        rig_definitions(rig), Dumper=_DefinitionsDumper, sort_keys=False,
+        rig_definitions(rig), Dumper=TerminationSafeDumper, sort_keys=False,
         default_flow_style=False, allow_unicode=True, width=100,
     )
     return HEADER + body

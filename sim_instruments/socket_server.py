@@ -42,6 +42,7 @@ from acquire.load import LoadedProtocol, LoadedRig, check_pair, load_protocol, l
 from acquire.rig import Instrument
 from sim_instruments.faults import Fault, FaultInjector, FaultPlan
 from sim_instruments.world import SimulatedWorld
+from sim_instruments.yaml_text import TerminationSafeDumper
 
 log = logging.getLogger(__name__)
 
@@ -101,16 +102,6 @@ def _looks_like_query(message: bytes) -> bool:
     return b"?" in message
 
 
-class _RigDumper(yaml.SafeDumper):
-    """Writes terminations as "\\n" rather than as folded blank lines."""
-
-
-def _represent_text(dumper: yaml.SafeDumper, text: str) -> yaml.ScalarNode:
-    style = '"' if any(char in text for char in "\r\n\t") else None
-    return dumper.represent_scalar("tag:yaml.org,2002:str", text, style=style)
-
-
-_RigDumper.add_representer(str, _represent_text)
 
 
 def _drain(device: Any) -> bytes:
@@ -267,7 +258,7 @@ class SocketRig:
     def write_rig(self, path: Path) -> Path:
         header = (f"# {self.rig.path.name} served on {LOOPBACK} by `flipsweep serve`; "
                   "valid while that server runs.\n")
-        body = yaml.dump(self.rig_document(), Dumper=_RigDumper, sort_keys=False,
+        body = yaml.dump(self.rig_document(), Dumper=TerminationSafeDumper, sort_keys=False,
                          default_flow_style=False, allow_unicode=True, width=100)
         path.write_text(header + body, encoding="utf-8")
         return path
