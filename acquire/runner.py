@@ -3,10 +3,8 @@
 from __future__ import annotations
 
 import contextlib
-import dataclasses
 import functools
 import logging
-import threading
 import time
 from collections.abc import Callable, Iterator
 from dataclasses import dataclass
@@ -15,9 +13,11 @@ from typing import Any, TypeVar
 import numpy as np
 
 from acquire.clock import Clock
+from acquire.instrument_set import Instruments
 from acquire.load import LoadedProtocol, LoadedRig
 from acquire.reduction import BlockResult, reduce_blocks
 from acquire.rig import DEFAULT_BACKLASH, DEFAULT_NPLC
+from acquire.safe_shutdown import make_safe
 from acquire.sample_geometry import SampleGeometry
 from acquire.schedule import Measure, Move, Point, Step, iterate_steps, plans_from
 from acquire.store import AppendTable, format_cell
@@ -31,10 +31,6 @@ RETRY_BACKOFF_S = (1.0, 4.0, 15.0)  # transient faults: wait, reconnect, measure
 # error, and an unreadable reply (line noise reaches the drivers as InstrumentError). A fault
 # that persists through every backoff stops the run.
 TRANSIENT_FAULTS = (CommunicationError, InstrumentError)
-# A shutdown call is bounded by its instrument's VISA timeout plus this much for the thread that
-# makes it to start and report back.
-SHUTDOWN_GRACE_S = 0.5
-DEFAULT_TIMEOUT_S = 5.0  # an instrument the rig does not describe (acquire.rig's default)
 
 Result = TypeVar("Result")
 
@@ -57,42 +53,6 @@ class PointOutcome:
     result: BlockResult | None
     flags: str
     skipped: bool = False
-
-
-@dataclass
-class Instruments:
-    source: Any
-    voltmeters: dict[str, Any]
-    field: Any | None = None
-    rotator: Any | None = None
-    temperature: Any | None = None
-    names: dict[str, str] = dataclasses.field(default_factory=dict)  # role -> rig name
-
-    @classmethod
-    def from_opened(
-        cls, rig: LoadedRig, opened: dict[str, Any], channels: list[str]
-    ) -> Instruments:
-        def one(role: str) -> Any | None:
-            entry = rig.rig.one(role)
-            return opened[entry[0]] if entry else None
-
-        names = {role: entry[0] for role in ("current_source", "field", "rotator", "temperature")
-                 if (entry := rig.rig.one(role))}
-        return cls(
-            source=one("current_source"),
-            voltmeters={name: opened[name] for name in channels},
-            field=one("field"),
-            rotator=one("rotator"),
-            temperature=one("temperature"),
-            names=names,
-        )
-
-    def all(self) -> Iterator[Any]:
-        yield self.source
-        yield from self.voltmeters.values()
-        for extra in (self.field, self.rotator, self.temperature):
-            if extra is not None:
-                yield extra
 
 
 class Runner:
@@ -399,7 +359,6 @@ class Runner:
         return iterate_steps(plans, start_point)
 
     def run(self, start_point: int = 0) -> None:
-        skip_until_move: set[str] = set()
         pending_skip = False
         for step in self.steps(start_point):
             if isinstance(step, Move):
@@ -416,7 +375,6 @@ class Runner:
                         pending_skip = True
                     else:
                         self.flags_pending.add("wait_timeout")
-                    skip_until_move.add(step.axis)
                 continue
             assert isinstance(step, Measure)
             if pending_skip:
@@ -436,61 +394,6 @@ class Runner:
         self.points.commit(durable)
 
     def shutdown(self) -> list[str]:
-        """The safe state: current to zero and output off first, then field, then temperature.
-
-        Every call is attempted even if an earlier one fails, once (no retries), and each is
-        bounded by its instrument's VISA timeout even if the instrument no longer answers; an
-        instrument that did not answer in time gets no further call. Failures are returned for
-        the log.
-        """
-        problems: list[str] = []
-        silent: set[str] = set()
-
-        def attempt(what: str, instrument: Any, action: Callable[[], object]) -> None:
-            if instrument.name in silent:
-                problems.append(f"{what}: skipped, {instrument.name} did not answer")
-                return
-            if instrument.name in self._disconnected:
-                # Its session was lost in a failed reconnect: one new one, or nothing works.
-                self._disconnected.discard(instrument.name)
-                attempt(f"reopen {instrument.name}", instrument, instrument.reconnect)
-            self._bounded_call(what, instrument, action, problems, silent)
-
-        source = self.instruments.source
-        attempt("current to zero", source, lambda: source.set_current(0.0))
-        attempt("output off", source, lambda: source.set_output(False))
-        finish = self.protocol.finish
-        magnet = self.instruments.field
-        if finish.field == "zero" and magnet is not None:
-            attempt("field to zero", magnet, lambda: magnet.set_target(0.0))
-        cryostat = self.instruments.temperature
-        if finish.temperature != "hold" and cryostat is not None:
-            target = float(finish.temperature)
-            attempt("temperature setpoint", cryostat, lambda: cryostat.set_setpoint(target))
-        return problems
-
-    def _bounded_call(self, what: str, instrument: Any, action: Callable[[], object],
-                      problems: list[str], silent: set[str]) -> None:
-        """`action()` in a helper thread, abandoned once the instrument's timeout has passed.
-
-        A VISA write has no timeout of its own (a full send buffer blocks it) and a user's
-        driver may block anywhere: the thread is what bounds the shutdown in time.
-        """
-        spec = self.rig.rig.instruments.get(instrument.name)
-        bound_s = (spec.timeout if spec is not None else DEFAULT_TIMEOUT_S) + SHUTDOWN_GRACE_S
-        failure: list[BaseException] = []
-
-        def call() -> None:
-            try:
-                action()
-            except Exception as error:  # the instrument may be gone; keep making the rest safe
-                failure.append(error)
-
-        worker = threading.Thread(target=call, name=f"shutdown: {what}", daemon=True)
-        worker.start()
-        worker.join(bound_s)
-        if worker.is_alive():
-            silent.add(instrument.name)
-            problems.append(f"{what}: no answer from {instrument.name} within {bound_s:g} s")
-        elif failure:
-            problems.append(f"{what}: {failure[0]}")
+        """The safe state (see acquire.safe_shutdown); failures are returned for the log."""
+        return make_safe(self.instruments, self.rig.rig, self.protocol.finish,
+                         self._disconnected)

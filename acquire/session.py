@@ -14,6 +14,7 @@ from typing import Any
 from acquire.clock import Clock, RealClock, VirtualClock
 from acquire.errors import InputError, RunFailure
 from acquire.estimate import Estimate, estimate, format_duration
+from acquire.instrument_set import Instruments
 from acquire.load import LoadedProtocol, LoadedRig, check_pair, load_protocol, load_rig
 from acquire.normalise import normalised_protocol, normalised_rig
 from acquire.progress import Progress
@@ -26,7 +27,7 @@ from acquire.run_folder import (
     software_versions,
     utc_now,
 )
-from acquire.runner import Instruments, PointOutcome, Runner, StopRun
+from acquire.runner import PointOutcome, Runner, StopRun
 from acquire.store import AppendTable
 from acquire.tables import POINT_COLUMN_SPECS, READING_COLUMNS
 

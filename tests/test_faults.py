@@ -18,8 +18,9 @@ import pandas as pd
 import pytest
 
 from acquire.clock import RealClock
+from acquire.instrument_set import Instruments
 from acquire.load import load_protocol, load_rig
-from acquire.runner import Instruments, Runner
+from acquire.runner import Runner
 from acquire.store import AppendTable
 from acquire.tables import POINT_COLUMN_SPECS, READING_COLUMNS
 from drivers.field_supply import DialectFieldSupply
