@@ -80,6 +80,7 @@ class Runner:
         self.points = points
         self.on_point = on_point
         self.waiter = StabilityWait(clock, heartbeat)
+        self.heartbeat = heartbeat  # status.json stays fresh inside a long point too
         self.channels = list(self.protocol.readings.channels)
         self.polarities = self.protocol.alternation.polarities
         self.density_per_ampere = SampleGeometry.from_sample(
@@ -204,6 +205,7 @@ class Runner:
                 source.set_current(current)
                 self.clock.sleep(alternation.settle)
                 readbacks = ",".join(map(format_cell, self._readbacks()))
+                self.heartbeat()
                 head = f"{point.number},{attempt},{cycle},{step_index},"
                 middle = f"{setpoints},{current!r},{polarity},"
                 for repeat in range(per_step):

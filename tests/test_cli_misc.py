@@ -52,3 +52,36 @@ def test_status_of_a_folder_that_is_not_a_run(tmp_path: Path,
                                               capsys: pytest.CaptureFixture[str]) -> None:
     assert main(["status", str(tmp_path)]) == 2
     assert "not a flipsweep run folder" in capsys.readouterr().err
+
+
+def test_unwritable_output_folder_is_refused_before_any_instrument(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import pyvisa
+
+    def no_visa(*args: object, **kwargs: object) -> None:
+        raise AssertionError("an instrument was opened")
+
+    monkeypatch.setattr(pyvisa, "ResourceManager", no_visa)
+    blocker = tmp_path / "a-file"
+    blocker.write_text("not a folder")
+    code = main(["run", str(ROOT / "protocols" / "base.yaml"), "--rig", str(RIG), "--simulate",
+                 "--out", str(blocker / "run"), "--quiet"])
+    assert code == 2
+    error = capsys.readouterr().err
+    assert "cannot be written" in error and error.count("\n") == 1
+
+
+def test_too_little_disk_space_is_refused(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str], monkeypatch: pytest.MonkeyPatch
+) -> None:
+    import shutil
+    from collections import namedtuple
+
+    usage = namedtuple("usage", "total used free")
+    monkeypatch.setattr(shutil, "disk_usage", lambda path: usage(10**9, 10**9 - 1000, 1000))
+    code = main(["run", str(ROOT / "protocols" / "angle_scan.yaml"), "--rig", str(RIG),
+                 "--simulate", "--out", str(tmp_path / "run"), "--quiet"])
+    assert code == 2
+    assert "MB free" in capsys.readouterr().err
+    assert not (tmp_path / "run" / "readings.csv").exists()
