@@ -48,7 +48,8 @@ def cmd_status(args: argparse.Namespace) -> int:
         return 0
     updated = datetime.fromisoformat(status["updated_utc"])
     age = (datetime.now(timezone.utc) - updated).total_seconds()
-    alive = status["state"] == "running" and age < 60
+    # The folder lock tells for sure on this machine; the heartbeat's age from elsewhere.
+    alive = status["state"] == "running" and (folder.is_running() or age < 60)
     state = status["state"]
     if state == "running" and not alive:
         state = f"running? no heartbeat for {age:.0f} s: the process may have died; " \

@@ -68,6 +68,12 @@ def repair(folder: RunFolder, rows_per_point: int, pattern: str, per_step: int,
 
 def resume_run(out: Path, progress: bool = True) -> int:
     folder = RunFolder(out)
+    folder.read_run_json()  # a clear error for a folder that is not a run's
+    with folder.locked():
+        return _resume_locked(folder, progress)
+
+
+def _resume_locked(folder: RunFolder, progress: bool) -> int:
     document = folder.read_run_json()
     for kind in ("protocol", "rig"):
         changed = changed_files(document[kind])
@@ -92,6 +98,9 @@ def resume_run(out: Path, progress: bool = True) -> int:
     density = SampleGeometry.from_sample(protocol.sample).carrier_density_per_ampere
     start_point = repair(folder, rows_per_point, protocol.alternation.pattern,
                          protocol.readings.per_step, density)
+    if start_point >= estimated.points:
+        print(f"run {folder.path}: all {estimated.points} points already done")
+        return 0
     history = document.setdefault("history", [])
     resumes = sum(1 for entry in history if entry.get("event") == "resume")
     last_clock = max((entry.get("run_clock_s", 0.0) for entry in history), default=0.0)
@@ -109,11 +118,9 @@ def resume_run(out: Path, progress: bool = True) -> int:
     else:
         clock = RealClock(offset_s=resumed_at)
     seed = None if options.seed is None else options.seed + SEED_STRIDE_PER_RESUME * (resumes + 1)
-    if start_point >= estimated.points:
-        print(f"run {folder.path}: all {estimated.points} points already done")
-        return 0
     code = _execute(loaded, rig, folder, options, clock, start_point, estimated, seed)
-    print(f"run {folder.path}: resumed from point {start_point}, done")
+    if code == 0:
+        print(f"run {folder.path}: resumed from point {start_point}, done")
     return code
 
 

@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import fcntl
 import hashlib
 import json
 import logging
@@ -10,6 +11,8 @@ import platform
 import shutil
 import socket
 import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
 from dataclasses import dataclass
 from datetime import datetime, timezone
 from importlib import metadata
@@ -115,6 +118,48 @@ class RunFolder:
                   "host": socket.gethostname()}
         # A heartbeat needs atomicity, not durability: after a power cut it is stale anyway.
         atomic_write_text(self.status_json, json.dumps(status, indent=2) + "\n", durable=False)
+
+    @property
+    def lock_file(self) -> Path:
+        return self.path / "run.lock"
+
+    @contextmanager
+    def locked(self) -> Iterator[None]:
+        """Hold the folder for one process: a second `resume` while the run still goes would
+        drive the same instruments twice and interleave the files. The kernel drops the lock
+        when the process ends, however it ends (kill -9 included)."""
+        handle = open(self.lock_file, "a+", encoding="utf-8")  # noqa: SIM115 - held open
+        try:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+        except OSError:
+            handle.seek(0)
+            holder = handle.read().strip() or "another process"
+            handle.close()
+            raise InputError(
+                f"a run is still going in this folder (pid {holder})", file=str(self.path),
+                fix="let it finish, or stop it first (Ctrl-C in its terminal, or kill that pid)",
+            ) from None
+        try:
+            handle.seek(0)
+            handle.truncate()
+            handle.write(str(os.getpid()))
+            handle.flush()
+            yield
+        finally:
+            fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+            handle.close()
+
+    def is_running(self) -> bool:
+        """True when a live process holds the folder's lock (on this machine)."""
+        if not self.lock_file.exists():
+            return False
+        with open(self.lock_file, encoding="utf-8") as handle:
+            try:
+                fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
+            except OSError:
+                return True
+            fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+            return False
 
     def read_status(self) -> dict[str, Any] | None:
         try:

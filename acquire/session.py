@@ -239,10 +239,14 @@ def start_run(protocol_path: Path, rig_path: Path, out: Path, options: RunOption
         "host": host_description(),
         "history": [{"event": "start", "utc": utc_now()}],
     }
-    folder.write_run_json(document)
-    code = _execute(loaded, rig, folder, options, clock, 0, estimated, options.seed)
+    with folder.locked():
+        folder.write_run_json(document)
+        code = _execute(loaded, rig, folder, options, clock, 0, estimated, options.seed)
     if options.simulate:
         print(f"simulated duration {format_duration(clock.now())} "
               f"(estimate {format_duration(estimated.duration_s)})")
-    print(f"run {folder.path}: done")
+    if code == EXIT_DONE:
+        print(f"run {folder.path}: done")
+    else:
+        print(f"run {folder.path}: interrupted; 'flipsweep resume {folder.path}' continues it")
     return code

@@ -64,6 +64,8 @@ def bare_loop(protocol: Path, calls: list[tuple[str, str, str]]) -> float:
               for x in sample.layers]
     model = BilayerSample(SampleParameters.from_geometry(
         sample.channel.length, sample.channel.width, layers), loaded.protocol.rotation_plane, 1)
+    # Opening the instruments counts in both arms: a bare script has to open them too.
+    started = time.perf_counter()
     simulated = open_simulated_rig(rig.rig, model, VirtualClock())
     handles = {}
     for spec in rig.rig.instruments.values():
@@ -71,7 +73,6 @@ def bare_loop(protocol: Path, calls: list[tuple[str, str, str]]) -> float:
         handle.read_termination = spec.read_termination
         handle.write_termination = spec.write_termination
         handles[handle.resource_name] = handle
-    started = time.perf_counter()
     for kind, resource, message in calls:
         if kind == "write":
             handles[resource].write(message)

@@ -16,6 +16,7 @@ import pandas as pd
 import pytest
 
 from acquire.cli import main
+from acquire.run_folder import RunFolder
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
@@ -196,3 +197,31 @@ def test_status_reports_progress_and_a_dead_process(
     assert "may have died" in shown and "resume" in shown
     assert f"/{216} points" in shown
     os.sync()
+
+
+def test_a_second_process_cannot_take_over_a_running_folder(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    out = tmp_path / "run"
+    process = subprocess.Popen(
+        [sys.executable, "-m", "acquire.cli", "run", str(PROTOCOL), "--rig", str(RIG),
+         "--simulate", "--realtime", "--out", str(out), "--quiet"],
+        stdout=subprocess.DEVNULL, stderr=subprocess.PIPE, cwd=ROOT,
+    )
+    try:
+        deadline = time.monotonic() + 60
+        while not (out / "run.lock").exists() or not (out / "run.lock").read_text():
+            assert time.monotonic() < deadline and process.poll() is None
+            time.sleep(0.05)
+        capsys.readouterr()
+        assert main(["resume", str(out), "--quiet"]) == 2
+        error = capsys.readouterr().err
+        assert "still going" in error and str(process.pid) in error
+        assert main(["status", str(out)]) == 0
+        assert "state      running" in capsys.readouterr().out
+    finally:
+        process.send_signal(signal.SIGINT)
+        process.wait(timeout=60)
+    assert process.returncode == 130
+    # Once the process has ended, the folder is free again (the kernel dropped the lock).
+    assert not RunFolder(out).is_running()
