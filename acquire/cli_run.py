@@ -9,15 +9,10 @@ from collections.abc import Callable
 from datetime import datetime, timezone
 from pathlib import Path
 
-from acquire.errors import InputError
-
 
 def cmd_run(args: argparse.Namespace) -> int:
     from acquire.session import RunOptions, start_run
 
-    if not args.simulate and args.seed is not None:
-        raise InputError("--seed applies to simulated runs", key=("--seed",),
-                         fix="add --simulate or drop --seed")
     options = RunOptions(simulate=args.simulate, seed=args.seed, realtime=args.realtime,
                          progress=not args.quiet)
     return start_run(Path(args.protocol), Path(args.rig), Path(args.out), options)

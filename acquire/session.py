@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import dataclasses
 import logging
 import signal
 import subprocess
@@ -34,6 +35,7 @@ from acquire.tables import POINT_COLUMN_SPECS, READING_COLUMNS
 log = logging.getLogger("flipsweep")
 
 EXIT_DONE, EXIT_FAILURE, EXIT_INTERRUPTED = 0, 1, 130
+BUILT_IN_SIMULATION = "@sim"
 DRY_RUN_SYNC_S = 1.0  # wall seconds between fsyncs and status writes on the virtual clock
 
 
@@ -219,6 +221,14 @@ def start_run(protocol_path: Path, rig_path: Path, out: Path, options: RunOption
     rig = load_rig(rig_path)
     check_pair(loaded, rig)
     estimated = estimate(loaded, rig)
+    if rig.rig.visa_library == BUILT_IN_SIMULATION and not options.simulate:
+        # Static pyvisa-sim replies cannot follow a field ramp or a current: the built-in
+        # simulated rig only makes sense with the sample model behind it.
+        print(f"note: rig {rig.rig.name!r} is the built-in simulation; running with --simulate")
+        options = dataclasses.replace(options, simulate=True)
+    if options.seed is not None and not options.simulate:
+        raise InputError("--seed applies to simulated runs", key=("--seed",),
+                         fix="add --simulate or drop --seed")
     if options.simulate:
         from sim_instruments.for_protocol import sample_for
 

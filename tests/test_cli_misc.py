@@ -85,3 +85,15 @@ def test_too_little_disk_space_is_refused(
     assert code == 2
     assert "MB free" in capsys.readouterr().err
     assert not (tmp_path / "run" / "readings.csv").exists()
+
+
+def test_the_built_in_simulated_rig_implies_simulate(
+    tmp_path: Path, capsys: pytest.CaptureFixture[str]
+) -> None:
+    out = tmp_path / "run"
+    assert main(["run", str(ROOT / "protocols" / "base.yaml"), "--rig", str(RIG), "--seed", "2",
+                 "--out", str(out), "--quiet"]) == 0
+    assert "running with --simulate" in capsys.readouterr().out
+    import json
+
+    assert json.loads((out / "run.json").read_text())["options"]["simulate"] is True
