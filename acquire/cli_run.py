@@ -39,7 +39,8 @@ def cmd_status(args: argparse.Namespace) -> int:
     folder.read_run_json()
     status = folder.read_status()
     if status is None:
-        print(f"{folder.path}: no status yet")
+        starting = " (a process is starting the run)" if folder.is_running() else ""
+        print(f"{folder.path}: no status yet{starting}")
         return 0
     updated = datetime.fromisoformat(status["updated_utc"])
     age = (datetime.now(timezone.utc) - updated).total_seconds()

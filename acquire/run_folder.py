@@ -2,7 +2,6 @@
 
 from __future__ import annotations
 
-import fcntl
 import hashlib
 import json
 import logging
@@ -21,6 +20,7 @@ from typing import Any
 
 from acquire import __version__
 from acquire.errors import InputError
+from acquire.file_lock import try_lock, unlock
 from acquire.store import atomic_write_text
 
 LIBRARIES = ("numpy", "pandas", "pint", "pydantic", "pyvisa", "pyvisa-sim", "pyvisa-py", "scipy")
@@ -129,9 +129,7 @@ class RunFolder:
         drive the same instruments twice and interleave the files. The kernel drops the lock
         when the process ends, however it ends (kill -9 included)."""
         handle = open(self.lock_file, "a+", encoding="utf-8")  # noqa: SIM115 - held open
-        try:
-            fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-        except OSError:
+        if not try_lock(handle):
             handle.seek(0)
             holder = handle.read().strip() or "another process"
             handle.close()
@@ -146,7 +144,7 @@ class RunFolder:
             handle.flush()
             yield
         finally:
-            fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+            unlock(handle)
             handle.close()
 
     def is_running(self) -> bool:
@@ -154,11 +152,9 @@ class RunFolder:
         if not self.lock_file.exists():
             return False
         with open(self.lock_file, encoding="utf-8") as handle:
-            try:
-                fcntl.flock(handle.fileno(), fcntl.LOCK_EX | fcntl.LOCK_NB)
-            except OSError:
+            if not try_lock(handle):
                 return True
-            fcntl.flock(handle.fileno(), fcntl.LOCK_UN)
+            unlock(handle)
             return False
 
     def read_status(self) -> dict[str, Any] | None:

@@ -210,7 +210,7 @@ def test_a_second_process_cannot_take_over_a_running_folder(
     )
     try:
         deadline = time.monotonic() + 60
-        while not (out / "run.lock").exists() or not (out / "run.lock").read_text():
+        while not (out / "status.json").exists() or not (out / "run.lock").read_text():
             assert time.monotonic() < deadline and process.poll() is None
             time.sleep(0.05)
         capsys.readouterr()
