@@ -9,15 +9,11 @@ from collections.abc import Callable, Sequence
 from pathlib import Path
 
 from acquire import __version__
+from acquire.cautions import CAUTION
 from acquire.errors import InputError, RunFailure
 
 EXIT_DONE, EXIT_FAILURE, EXIT_INVALID, EXIT_INTERRUPTED = 0, 1, 2, 130
 
-CAUTION = (
-    "Caution: high current densities destroy thin films, magnets quench and store energy, "
-    "cryogens asphyxiate and burn, ESD kills devices. Follow your lab's rules and the "
-    "instruments' manuals; flipsweep's limits are an extra guard, not a replacement."
-)
 
 
 def _load_pair(protocol_path: str, rig_path: str | None):  # returns (LoadedProtocol, LoadedRig)

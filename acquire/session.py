@@ -6,12 +6,14 @@ import dataclasses
 import logging
 import signal
 import subprocess
+import sys
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
 
+from acquire.cautions import CAUTION
 from acquire.clock import Clock, RealClock, VirtualClock
 from acquire.errors import InputError, RunFailure
 from acquire.estimate import Estimate, estimate, format_duration
@@ -229,6 +231,9 @@ def start_run(protocol_path: Path, rig_path: Path, out: Path, options: RunOption
     if options.seed is not None and not options.simulate:
         raise InputError("--seed applies to simulated runs", key=("--seed",),
                          fix="add --simulate or drop --seed")
+    if not options.simulate:
+        # Real instruments: the operator sees the cautions once more before anything is sent.
+        print(CAUTION, file=sys.stderr)
     if options.simulate:
         from sim_instruments.for_protocol import sample_for
 
