@@ -55,24 +55,26 @@ def run_pattern(tmp_path: Path, pattern: str, simulation: dict[str, float]) -> t
     return protocol, out
 
 
+def deviations(protocol: Path, out: Path, quantity: str) -> list[tuple[float, float, float]]:
+    """(measured - truth, standard error, truth) of `quantity` for every point of a run."""
+    model = truth_model(protocol, out)
+    rows = []
+    for row in pd.read_csv(out / "points.csv").itertuples():
+        model.apply_field(row.field_T, row.angle_deg)
+        truth = getattr(model.expected("longitudinal", row.current_A, 300.0), quantity)
+        rows.append((getattr(row, quantity) - truth, getattr(row, f"{quantity}_err"), truth))
+    return rows
+
+
 def test_zero_step_removes_a_thermoelectric_offset_ten_times_the_signal(tmp_path: Path) -> None:
     offset = 15e-6  # V; the odd voltage at 1 mA is ~1.3 uV here, so about ten times smaller
-    results = {}
-    for pattern in ("+0-", "+-"):
-        protocol, out = run_pattern(tmp_path, pattern, {"thermoelectric_offset_V": offset})
-        model = truth_model(protocol, out)
-        rows = []
-        for row in pd.read_csv(out / "points.csv").itertuples():
-            model.apply_field(row.field_T, row.angle_deg)
-            truth = model.expected("longitudinal", row.current_A, 300.0)
-            rows.append(
-                (
-                    row.unidirectional_ohm - truth.unidirectional_ohm,
-                    row.unidirectional_ohm_err,
-                    truth.unidirectional_ohm,
-                )
-            )
-        results[pattern] = rows
+    results = {
+        pattern: deviations(
+            *run_pattern(tmp_path, pattern, {"thermoelectric_offset_V": offset}),
+            "unidirectional_ohm",
+        )
+        for pattern in ("+0-", "+-")
+    }
     for bias, error, truth in results["+0-"]:
         assert abs(truth) * 1e-3 * 10 < offset  # the offset really is ~10x the odd voltage
         assert abs(bias) < 3 * error
@@ -84,18 +86,14 @@ def test_zero_step_removes_a_thermoelectric_offset_ten_times_the_signal(tmp_path
 
 def test_symmetric_pattern_cancels_a_linear_drift(tmp_path: Path) -> None:
     drift = 2e-5  # V/s: a fast thermal drift, to make the '+-' bias obvious
-    found = {}
-    for pattern in ("+--+", "+-"):
-        protocol, out = run_pattern(tmp_path, pattern, {"drift_V_per_s": drift})
-        model = truth_model(protocol, out)
-        rows = []
-        for row in pd.read_csv(out / "points.csv").itertuples():
-            model.apply_field(row.field_T, row.angle_deg)
-            truth = model.expected("longitudinal", row.current_A, 300.0)
-            rows.append((row.resistance_ohm - truth.resistance_ohm, row.resistance_ohm_err))
-        found[pattern] = rows
-    for bias, error in found["+--+"]:
+    found = {
+        pattern: deviations(
+            *run_pattern(tmp_path, pattern, {"drift_V_per_s": drift}), "resistance_ohm"
+        )
+        for pattern in ("+--+", "+-")
+    }
+    for bias, error, _ in found["+--+"]:
         assert abs(bias) < 3 * error  # only noise is left
-    for bias, error in found["+-"]:
+    for bias, error, _ in found["+-"]:
         # V- is read one step after V+: R is low by drift x (step time) / (2 I).
         assert bias < 0 and abs(bias) > 10 * error
