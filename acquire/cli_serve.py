@@ -13,14 +13,14 @@ from __future__ import annotations
 
 import argparse
 import logging
-import signal
 import sys
 import threading
-from collections.abc import Callable, Iterator
-from contextlib import contextmanager
+from collections.abc import Callable
+from contextlib import AbstractContextManager
 from pathlib import Path
 
 from acquire.errors import InputError
+from acquire.stop_signals import on_stop_signals
 from sim_instruments.faults import FaultPlan, parse_stall
 
 DEFAULT_PORT_BASE = 5025  # the port commonly used for raw SCPI over TCP (common practice)
@@ -41,17 +41,8 @@ def fault_plan_from(args: argparse.Namespace) -> FaultPlan:
     )
 
 
-@contextmanager
-def stop_on_signals(stop: threading.Event) -> Iterator[None]:
-    def handler(signum: int, frame: object) -> None:
-        stop.set()
-
-    previous = {sig: signal.signal(sig, handler) for sig in (signal.SIGINT, signal.SIGTERM)}
-    try:
-        yield
-    finally:
-        for sig, old in previous.items():
-            signal.signal(sig, old)
+def stop_on_signals(stop: threading.Event) -> AbstractContextManager[None]:
+    return on_stop_signals(lambda signum, frame: stop.set())
 
 
 def _show_faults(logger_name: str) -> None:

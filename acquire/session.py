@@ -7,8 +7,6 @@ import logging
 import signal
 import subprocess
 import sys
-from collections.abc import Iterator
-from contextlib import contextmanager
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -31,6 +29,7 @@ from acquire.run_folder import (
     utc_now,
 )
 from acquire.runner import PointOutcome, Runner, StopRun
+from acquire.stop_signals import on_stop_signals
 from acquire.store import AppendTable
 from acquire.tables import POINT_COLUMN_SPECS, READING_COLUMNS
 
@@ -76,17 +75,8 @@ def changed_files(record: dict[str, Any]) -> list[str]:
     return changed
 
 
-@contextmanager
-def signals_raise_interrupt() -> Iterator[None]:
-    def handler(signum: int, frame: object) -> None:
-        raise Interrupted(signal.Signals(signum).name)
-
-    previous = {sig: signal.signal(sig, handler) for sig in (signal.SIGINT, signal.SIGTERM)}
-    try:
-        yield
-    finally:
-        for sig, old in previous.items():
-            signal.signal(sig, old)
+def _raise_interrupt(signum: int, frame: object) -> None:
+    raise Interrupted(signal.Signals(signum).name)
 
 
 class SweepLog:
@@ -167,7 +157,7 @@ def _execute(
     state, code, reason = "failed", EXIT_FAILURE, ""
     document = folder.read_run_json()
     try:
-        with signals_raise_interrupt():
+        with on_stop_signals(_raise_interrupt):
             opened, simulated = _open(loaded, rig, clock, options, seed)
             instruments = Instruments.from_opened(rig, opened, loaded.protocol.readings.channels)
             runner = Runner(loaded, rig, instruments, clock, readings, points,
