@@ -17,9 +17,9 @@ from pathlib import Path
 
 import pyvisa.resources
 
-from acquire.clock import VirtualClock
-from acquire.load import load_protocol, load_rig
-from acquire.session import RunOptions, start_run
+from acquire.inputs.load import load_protocol, load_rig
+from acquire.run.clock import VirtualClock
+from acquire.run.session import RunOptions, start_run
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
@@ -55,15 +55,11 @@ def record(protocol: Path) -> list[tuple[str, str, str]]:
 
 
 def bare_loop(protocol: Path, calls: list[tuple[str, str, str]]) -> float:
-    from sim_instruments.sample_model import BilayerSample, LayerSI, SampleParameters
+    from acquire.run.simulation import sample_for
     from sim_instruments.simulated_rig import open_simulated_rig
 
     loaded, rig = load_protocol(protocol), load_rig(RIG)
-    sample = loaded.protocol.sample
-    layers = [LayerSI(x.name, x.thickness, x.resistivity, x is sample.carrier)
-              for x in sample.layers]
-    model = BilayerSample(SampleParameters.from_geometry(
-        sample.channel.length, sample.channel.width, layers), loaded.protocol.rotation_plane, 1)
+    model = sample_for(loaded, rig, 1)
     # Opening the instruments counts in both arms: a bare script has to open them too.
     started = time.perf_counter()
     simulated = open_simulated_rig(rig.rig, model, VirtualClock())

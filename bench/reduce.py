@@ -25,8 +25,8 @@ import pandas as pd
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from acquire.fit_tables import FitOptions, RunContext, build_fits_table
-from acquire.reduction import reduce_readings
+from acquire.analysis.fit_tables import FitOptions, RunContext, build_fits_table
+from acquire.modes.dc_reversal.reduction import reduce_readings
 
 PATTERN = "+0-"
 CYCLES = 4

@@ -8,6 +8,7 @@ An empty template means the instrument has no such command (allowed for the `opt
 
 from __future__ import annotations
 
+import re
 import string
 from collections.abc import Mapping
 from dataclasses import dataclass, field
@@ -18,10 +19,9 @@ from typing import Any
 
 import yaml
 
-from acquire.errors import InputError
-from acquire.rig import ROLES, Instrument, Rig
-from acquire.yaml_source import SourceMap
+from drivers.errors import InputError
 from drivers.replies import SCPI_ERROR, ReplyParser, reply_parser
+from drivers.spec import InstrumentSpec
 
 DIALECT_DIR = Path(__file__).with_name("dialects")
 # The one reply entry that is not a template: what an instrument says to a message it
@@ -30,6 +30,11 @@ REJECTED = "rejected"
 ERROR_QUERY = "error_query"
 # Value fields a template may use, and the factor from the SI value to the field's value.
 VALUE_FIELDS: Mapping[str, float] = MappingProxyType({"value": 1.0, "per_minute": 60.0})
+# How an instrument reads a number out of a command (SCPI-99 vol. 1, decimal numeric program
+# data): sign, digits with an optional point, an optional exponent. The whole token counts, so
+# a template that writes "{value}E3" is read as the instrument would read it, a thousand times
+# the value.
+NUMBER_TOKEN = re.compile(r"[-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?")
 
 
 @dataclass(frozen=True)
@@ -67,26 +72,30 @@ class Dialect:
         return template.format(value=value, per_minute=value * VALUE_FIELDS["per_minute"])
 
     def sent_value(self, name: str, value: float) -> float:
-        """The number the instrument will read from the command text, in SI units.
+        """The number the instrument will read from the command text for `value`, in SI."""
+        return self.decode(name, self.render(name, value))
 
-        A template's precision rounds: `{value:.2g}` sends 1.26 mA as 0.0013. Limits are
-        checked against this number, not against the float before formatting.
+    def decode(self, name: str, command: str) -> float:
+        """The number (SI) an instrument reads from `command`, rendered from template `name`.
+
+        Read from the text alone, as the instrument reads it: the numeric token where the
+        template's value field starts, divided by the field's declared scaling. A template's
+        precision rounds (`{value:.2g}` sends 1.26 mA as 0.0013) and literal text after the
+        field may extend the number (`{value}E3`); limits are checked against this number.
         """
         field_name = self.value_fields[name]
         if field_name is None:
-            return value
-        scale = VALUE_FIELDS[field_name]
-        for _, used, spec, conversion in string.Formatter().parse(self.commands[name]):
+            raise ValueError(f"{self.role} command {name!r} sends no number")
+        prefix = ""
+        for literal, used, _, _ in string.Formatter().parse(self.commands[name]):
+            prefix += literal
             if used == field_name:
-                scaled = value * scale
-                if conversion == "r":
-                    text = repr(scaled)
-                elif conversion == "s":
-                    text = str(scaled)
-                else:
-                    text = format(scaled, spec or "")
-                return float(text) / scale
-        return value
+                break
+        prefix = prefix.replace("{{", "{").replace("}}", "}")
+        token = NUMBER_TOKEN.match(command, len(prefix)) if command.startswith(prefix) else None
+        if token is None:
+            raise ValueError(f"{command!r} carries no number where {name!r} puts its value")
+        return float(token.group()) / VALUE_FIELDS[field_name]
 
     def render_not_above(self, name: str, value: float) -> str:
         """The command for `value`, rounded toward zero where the template's precision would
@@ -124,8 +133,8 @@ def _read_dialect_file(path: Path) -> dict[str, Any]:
 @cache
 def role_dialect(role: str) -> Dialect:
     """The default dialect of a role: common.yaml merged with <role>.yaml."""
-    if role not in ROLES:
-        raise ValueError(f"unknown role {role!r}; valid: {', '.join(ROLES)}")
+    if not (DIALECT_DIR / f"{role}.yaml").is_file():
+        raise ValueError(f"no dialect file for role {role!r} in {DIALECT_DIR}")
     common = _read_dialect_file(DIALECT_DIR / "common.yaml")
     own = _read_dialect_file(DIALECT_DIR / f"{role}.yaml")
     replies = {**common["replies"], **own["replies"]}
@@ -198,7 +207,7 @@ def _checked_reply(base: Dialect, name: str, reply_name: str, spec: str) -> str:
     return spec
 
 
-def dialect_for(name: str, spec: Instrument) -> Dialect:
+def dialect_for(name: str, spec: InstrumentSpec) -> Dialect:
     """The dialect of one rig instrument: its role's, with the rig's `commands`/`replies`.
 
     Raises InputError (key path into the rig file, no file name) for unknown template names,
@@ -238,15 +247,7 @@ def dialect_for(name: str, spec: Instrument) -> Dialect:
     )
 
 
-def validate_dialects(rig: Rig, source: SourceMap | None = None) -> dict[str, Dialect]:
-    """Every instrument's dialect, or one InputError located in the rig file when `source`
-    (LoadedRig.document.source) is given. Sends nothing to any instrument."""
-    dialects: dict[str, Dialect] = {}
-    for name, spec in rig.instruments.items():
-        try:
-            dialects[name] = dialect_for(name, spec)
-        except InputError as error:
-            if source is None:
-                raise
-            raise source.error(error.problem, error.key, error.fix) from None
-    return dialects
+def validate_dialects(instruments: Mapping[str, InstrumentSpec]) -> dict[str, Dialect]:
+    """Every instrument's dialect, or the first InputError (key path into the rig file).
+    Sends nothing to any instrument."""
+    return {name: dialect_for(name, spec) for name, spec in instruments.items()}

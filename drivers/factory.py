@@ -7,30 +7,17 @@ from typing import Any
 
 import pyvisa
 
-from acquire.errors import InputError
-from acquire.rig import Instrument, Rig
-from drivers.current_source import DialectCurrentSource
 from drivers.dialect import validate_dialects
-from drivers.field_supply import DialectFieldSupply
-from drivers.interface import ROLE_PROTOCOLS
-from drivers.rotator import DialectRotator
-from drivers.temperature_controller import DialectTemperatureController
-from drivers.visa_library import resource_manager_for
-from drivers.voltmeter import DialectVoltmeter
+from drivers.errors import InputError
+from drivers.rig import Rig
+from drivers.roles import role_named
+from drivers.spec import InstrumentSpec
 
-__all__ = ["BUILT_IN_DRIVERS", "open_instruments", "protocol_methods", "resource_manager_for"]
-
-BUILT_IN_DRIVERS: dict[str, type] = {
-    "current_source": DialectCurrentSource,
-    "voltmeter": DialectVoltmeter,
-    "field": DialectFieldSupply,
-    "rotator": DialectRotator,
-    "temperature": DialectTemperatureController,
-}
+__all__ = ["driver_class", "open_instruments", "protocol_methods"]
 
 
 def protocol_methods(protocol: type) -> tuple[str, ...]:
-    """The method names a role protocol (drivers.interface) asks for, inherited ones included."""
+    """The method names a role interface asks for, inherited ones included."""
     names: set[str] = set()
     for klass in protocol.__mro__:
         if klass is object or not getattr(klass, "_is_protocol", False):
@@ -39,7 +26,7 @@ def protocol_methods(protocol: type) -> tuple[str, ...]:
     return tuple(sorted(names))
 
 
-def _user_driver_class(name: str, spec: Instrument) -> type:
+def _user_driver_class(name: str, spec: InstrumentSpec) -> type:
     assert spec.driver is not None
     key = ("instruments", name, "driver")
     module_name, _, class_name = spec.driver.partition(":")
@@ -56,18 +43,19 @@ def _user_driver_class(name: str, spec: Instrument) -> type:
             f"{module_name!r} has no class {class_name!r}", key=key,
             fix="write the driver as 'package.module:ClassName'",
         )
-    missing = [m for m in protocol_methods(ROLE_PROTOCOLS[spec.role])
+    role = role_named(spec.role)
+    missing = [m for m in protocol_methods(role.interface)
                if not callable(getattr(found, m, None))]
     if missing:
         raise InputError(
             f"{spec.driver} lacks what a {spec.role} driver needs: {', '.join(missing)}",
-            key=key, fix="implement the role's methods (see drivers/interface.py)",
+            key=key, fix=f"implement the role's methods (see drivers/roles/{spec.role}.py)",
         )
     return found
 
 
-def driver_class(name: str, spec: Instrument) -> type:
-    return BUILT_IN_DRIVERS[spec.role] if spec.driver is None else _user_driver_class(name, spec)
+def driver_class(name: str, spec: InstrumentSpec) -> type:
+    return role_named(spec.role).driver if spec.driver is None else _user_driver_class(name, spec)
 
 
 def open_instruments(rig: Rig, resource_manager: pyvisa.ResourceManager) -> dict[str, Any]:
@@ -77,7 +65,7 @@ def open_instruments(rig: Rig, resource_manager: pyvisa.ResourceManager) -> dict
     instrument is opened as `Class(name, spec, resource_manager)`. If one fails to open, the
     ones already open are closed and the error (CommunicationError) propagates.
     """
-    validate_dialects(rig)
+    validate_dialects(rig.instruments)
     classes = {name: driver_class(name, spec) for name, spec in rig.instruments.items()}
     opened: dict[str, Any] = {}
     try:

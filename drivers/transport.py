@@ -17,10 +17,11 @@ import pyvisa
 from pyvisa import constants
 from pyvisa.errors import InvalidSession, VisaIOError
 
-from acquire.rig import Instrument
+from drivers.command_limits import CommandLimits
 from drivers.dialect import ERROR_QUERY, Dialect
-from drivers.interface import CommunicationError, InstrumentError
+from drivers.errors import CommunicationError, InstrumentError, LimitError
 from drivers.replies import ReplyFormatError
+from drivers.spec import InstrumentSpec
 
 # A queue longer than this is an instrument stuck repeating one error; stop reading it.
 MAX_QUEUED_ERRORS = 32
@@ -37,12 +38,13 @@ def _describe_fault(error: BaseException, timeout_s: float) -> str:
 
 class Transport:
     def __init__(
-        self, name: str, spec: Instrument, resource_manager: pyvisa.ResourceManager,
-        dialect: Dialect,
+        self, name: str, spec: InstrumentSpec, resource_manager: pyvisa.ResourceManager,
+        dialect: Dialect, limits: CommandLimits | None = None,
     ) -> None:
         self.name = name
         self.spec = spec
         self.dialect = dialect
+        self.limits = limits or CommandLimits((), spec)
         self._manager = resource_manager
         self._session: Any = None
         # Commands sent since the error queue was last read: the queue does not say which
@@ -142,7 +144,23 @@ class Transport:
         return self.dialect.render(template, value)
 
     def send(self, template: str, value: float | None = None) -> None:
-        self.write_text(self._command(template, value))
+        """Render `template`, check its number against the limits, then write it."""
+        bound = self.limits.get(template)
+        if bound is None or value is None or not self.dialect.takes_value(template):
+            self.write_text(self._command(template, value))
+            return
+        if not self.dialect.commands.get(template):
+            raise InstrumentError(
+                self.name, template, f"the rig's dialect has no command for {template!r}"
+            )
+        try:
+            command = (self.dialect.render_not_above(template, value)
+                       if bound.limit.round_toward_zero else self.dialect.render(template, value))
+            sent = self.dialect.decode(template, command)
+        except ValueError as error:
+            raise LimitError(self.name, template, f"refused: {error}") from None
+        self.limits.refuse_past(self.name, template, value, sent, command)
+        self.write_text(command)
 
     def ask(self, template: str) -> object:
         command = self._command(template)

@@ -16,8 +16,8 @@ import pyvisa
 from pyvisa.rname import to_canonical_name
 from pyvisa_sim.component import NoResponse, Property
 
-from acquire.rig import Rig
 from drivers.dialect import ERROR_QUERY, VALUE_FIELDS, Dialect, dialect_for
+from drivers.rig import Rig
 from sim_instruments.reply_text import ReplyWriter, reply_writer
 from sim_instruments.world import SimulatedWorld
 
@@ -88,48 +88,6 @@ def _value_command(
     return set_from_text
 
 
-def _role_bindings(world: SimulatedWorld, name: str, role: str) -> dict[str, Binding]:
-    if role == "current_source":
-        return {
-            "source_current_mode": lambda: None,
-            "set_current": world.set_current,
-            "read_current": world.programmed_current,
-            "output_on": lambda: world.set_output(True),
-            "output_off": lambda: world.set_output(False),
-            "compliance": world.set_compliance,
-            "tripped": world.compliance_tripped,
-        }
-    if role == "voltmeter":
-        return {
-            "dc_voltage": lambda: None,
-            "nplc": lambda value: world.set_nplc(name, value),
-            "range": lambda value: world.set_range(name, value),
-            "autorange": lambda: world.set_range(name, None),
-            "autozero_on": lambda: world.set_autozero(name, True),
-            "autozero_off": lambda: world.set_autozero(name, False),
-            "read": lambda: world.read_voltage(name),
-        }
-    if role == "field":
-        return {
-            "set_target": world.set_field_target,
-            "ramp_rate": world.set_field_rate,
-            "field": world.field_T,
-        }
-    if role == "rotator":
-        return {
-            "move": world.move_rotator,
-            "position": world.angle_deg,
-            "moving": world.rotator_moving,
-            "home": lambda: world.move_rotator(0.0),
-            "speed": world.set_rotator_speed,
-        }
-    return {
-        "setpoint": world.set_temperature_setpoint,
-        "temperature": world.temperature_K,
-        "ramp_rate": world.set_temperature_rate,
-    }
-
-
 def _common_bindings(world: SimulatedWorld, name: str, errors: ErrorQueue) -> dict[str, Binding]:
     def reset() -> None:
         world.reset(name)
@@ -172,7 +130,7 @@ def couple(resource_manager: pyvisa.ResourceManager, world: SimulatedWorld, rig:
         device = devices[to_canonical_name(spec.resource)]
         dialect = dialect_for(name, spec)
         errors = ErrorQueue(device, dialect)
-        bindings = {**_role_bindings(world, name, spec.role),
+        bindings = {**world.instruments[name].bindings(),
                     **_common_bindings(world, name, errors)}
         for template, binding in bindings.items():
             if template in device._properties:

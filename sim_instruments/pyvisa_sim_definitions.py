@@ -21,11 +21,13 @@ from typing import Any
 import yaml
 from pyvisa import rname
 
-from acquire.errors import InputError
-from acquire.rig import Instrument, Rig
 from drivers.dialect import ERROR_QUERY, Dialect, dialect_for
+from drivers.errors import InputError
 from drivers.replies import FlagReply
+from drivers.rig import Rig
+from drivers.spec import InstrumentSpec
 from sim_instruments.reply_text import reply_writer
+from sim_instruments.roles import static_replies
 from sim_instruments.yaml_text import TerminationSafeDumper
 
 SPEC_VERSION = "1.1"
@@ -40,8 +42,6 @@ HEADER = (
 )
 # Templates answered by a fixed dialogue rather than a property.
 STATIC_QUERIES = ("identify", "operation_complete")
-# What the static definitions answer before anything is set (SI units).
-STATIC_DEFAULTS: dict[str, object] = {"temperature": 300.0}
 
 
 def identity(role: str, instrument: str) -> str:
@@ -58,7 +58,7 @@ def setter_pattern(template: str) -> str:
     return "".join(parts)
 
 
-def _eom(spec: Instrument) -> dict[str, dict[str, str]]:
+def _eom(spec: InstrumentSpec) -> dict[str, dict[str, str]]:
     parsed = rname.parse_resource_name(spec.resource)
     key = f"{parsed.interface_type} {parsed.resource_class}"
     return {key: {"q": spec.write_termination, "r": spec.read_termination}}
@@ -81,7 +81,7 @@ def _error_handling(dialect: Dialect) -> dict[str, Any]:
 
 def _default_reply(name: str, dialect: Dialect, instrument: str) -> str:
     spec = dialect.reply_specs[name]
-    default = STATIC_DEFAULTS.get(name)
+    default = static_replies(dialect.role).get(name)
     if default is None:
         default = False if isinstance(dialect.parsers[name], FlagReply) else 0.0
     try:
@@ -102,7 +102,7 @@ def _ordered_setters(dialect: Dialect, names: list[str]) -> list[str]:
     return sorted(names, key=lambda n: (dialect.takes_value(n), -literal_length(n), n))
 
 
-def device_definition(instrument: str, spec: Instrument, dialect: Dialect) -> dict[str, Any]:
+def device_definition(instrument: str, spec: InstrumentSpec, dialect: Dialect) -> dict[str, Any]:
     dialogues = []
     if dialect.supports("identify"):
         dialogues.append({"q": dialect.commands["identify"], "r": identity(spec.role, instrument)})
@@ -168,9 +168,8 @@ def write_rig_definitions(rig: Rig, path: Path) -> Path:
 
 
 def main() -> None:
-    from acquire.load import load_rig
-
-    write_rig_definitions(load_rig(GENERIC_RIG).rig, GENERIC_DEFINITIONS)
+    rig = Rig.model_validate(yaml.safe_load(GENERIC_RIG.read_text(encoding="utf-8")))
+    write_rig_definitions(rig, GENERIC_DEFINITIONS)
     print(f"wrote {GENERIC_DEFINITIONS}")
 
 

@@ -14,11 +14,10 @@ from pathlib import Path
 
 import pyvisa
 
-from acquire.clock import Clock
-from acquire.rig import Rig
+from drivers.rig import Rig
 from sim_instruments.live import couple
 from sim_instruments.pyvisa_sim_definitions import write_rig_definitions
-from sim_instruments.world import Sample, SimulatedWorld
+from sim_instruments.world import Clock, Sample, SimulatedWorld
 
 
 @dataclass

@@ -28,6 +28,7 @@ import selectors
 import socket
 import threading
 import time
+from collections.abc import Mapping
 from dataclasses import dataclass, field
 from pathlib import Path
 from types import TracebackType
@@ -36,12 +37,12 @@ from typing import Any
 import yaml
 from pyvisa.rname import to_canonical_name
 
-from acquire.clock import RealClock
-from acquire.errors import InputError
-from acquire.load import LoadedProtocol, LoadedRig, check_pair, load_protocol, load_rig
-from acquire.rig import Instrument
+from drivers.errors import InputError
+from drivers.rig import Rig
+from drivers.spec import InstrumentSpec
 from sim_instruments.faults import Fault, FaultInjector, FaultPlan
-from sim_instruments.world import SimulatedWorld
+from sim_instruments.simulated_rig import open_simulated_rig
+from sim_instruments.world import Clock, Sample, SimulatedWorld
 from sim_instruments.yaml_text import TerminationSafeDumper
 
 log = logging.getLogger(__name__)
@@ -68,7 +69,7 @@ def socket_resource(port: int) -> str:
 @dataclass
 class ServedInstrument:
     name: str
-    spec: Instrument
+    spec: InstrumentSpec
     device: Any  # the pyvisa-sim Device: write(bytes) a message, then read() its reply bytewise
     query_termination: bytes  # what ends a message from the client
     reply_termination: bytes
@@ -117,25 +118,25 @@ def _drain(device: Any) -> bytes:
 class SocketRig:
     """A simulated rig behind loopback TCP sockets; usable in-process (tests) or by `serve`.
 
-        with SocketRig(protocol_path, rig_path, faults=FaultPlan(drop_rate=0.01)) as served:
+        with SocketRig(rig, sample, clock, rig_data=data,
+                       faults=FaultPlan(drop_rate=0.01)) as served:
             served.resources            # {"vxx": "TCPIP0::127.0.0.1::40123::SOCKET", ...}
             served.write_rig(tmp / "served.yaml")
-            served.world.source.level_A # the simulated source, as the instruments left it
+            served.world.instruments["source"]  # the simulated source, as the run left it
 
     `port_base` 0 takes free ports; otherwise instrument i (in rig order) gets port_base + i.
     """
 
     def __init__(
-        self, protocol: Path | LoadedProtocol, rig: Path | LoadedRig, *, port_base: int = 0,
-        seed: int | None = None, faults: FaultPlan | None = None,
+        self, rig: Rig, sample: Sample, clock: Clock, *, rig_data: Mapping[str, Any],
+        rig_label: str = "rig", port_base: int = 0, faults: FaultPlan | None = None,
     ) -> None:
-        from sim_instruments.for_protocol import simulate  # the same world as `run --simulate`
-
-        self.protocol = protocol if isinstance(protocol, LoadedProtocol) else load_protocol(
-            protocol)
-        self.rig = rig if isinstance(rig, LoadedRig) else load_rig(rig)
-        check_pair(self.protocol, self.rig)
-        instruments = self.rig.rig.instruments
+        """`rig_data`: the rig file as written (after `extends`), for `write_rig`; `clock`: a
+        real clock (the served instruments answer in real time)."""
+        self.rig = rig
+        self.rig_data = rig_data
+        self.rig_label = rig_label
+        instruments = rig.instruments
         if not 0 <= port_base <= 65536 - len(instruments):
             raise InputError(f"{port_base} is not a TCP port for {len(instruments)} instruments",
                              key=("--port-base",),
@@ -146,8 +147,8 @@ class SocketRig:
             option, problem = problems[0]
             raise InputError(problem, key=(option,), fix="see `flipsweep serve --help`")
         self.port_base = port_base
-        self.clock = RealClock()
-        self.simulation = simulate(self.protocol, self.rig, self.clock, seed)
+        self.clock = clock
+        self.simulation = open_simulated_rig(rig, sample, clock)
         self.world: SimulatedWorld = self.simulation.world
         self.faults = FaultInjector(self.plan, instruments)
         devices = self.simulation.resource_manager.visalib.devices  # type: ignore[attr-defined]
@@ -249,14 +250,14 @@ class SocketRig:
         """The input rig (after `extends`), with '@py' and the served addresses."""
         if not self.resources:
             raise RuntimeError("start() the served rig first: its ports are not known yet")
-        document = copy.deepcopy(self.rig.document.data)
+        document = copy.deepcopy(dict(self.rig_data))
         document["visa_library"] = "@py"
         for name, resource in self.resources.items():
             document["instruments"][name]["resource"] = resource
         return document
 
     def write_rig(self, path: Path) -> Path:
-        header = (f"# {self.rig.path.name} served on {LOOPBACK} by `flipsweep serve`; "
+        header = (f"# {self.rig_label} served on {LOOPBACK} by `flipsweep serve`; "
                   "valid while that server runs.\n")
         body = yaml.dump(self.rig_document(), Dumper=TerminationSafeDumper, sort_keys=False,
                          default_flow_style=False, allow_unicode=True, width=100)

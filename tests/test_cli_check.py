@@ -12,7 +12,7 @@ from typing import Any
 import pytest
 import yaml
 
-from acquire.yaml_source import load_document
+from acquire.inputs.yaml_source import load_document
 from tests.conftest import PROTOCOLS, REPO, SIMULATED_RIG, CliResult
 
 Cli = Callable[[list[str]], CliResult]

@@ -8,7 +8,7 @@ from typing import Any
 import pytest
 
 from acquire.errors import InputError
-from acquire.load import load_rig
+from acquire.inputs.load import load_rig
 from drivers.dialect import dialect_for, role_dialect, validate_dialects
 from drivers.replies import ReplyFormatError, reply_parser
 from tests.test_drivers_support import make_rig, standard_instruments
@@ -52,7 +52,7 @@ def _problem(overrides: dict[str, Any]) -> InputError:
     instruments = standard_instruments()
     instruments["source"].update(overrides)
     with pytest.raises(InputError) as raised:
-        validate_dialects(make_rig(instruments))
+        validate_dialects(make_rig(instruments).instruments)
     return raised.value
 
 
@@ -80,7 +80,7 @@ def test_malformed_overrides_are_input_errors(overrides: dict[str, Any], words: 
 def test_optional_commands_may_be_blanked() -> None:
     instruments = standard_instruments()
     instruments["source"]["commands"] = {"tripped": "", "error_query": ""}
-    dialect = validate_dialects(make_rig(instruments))["source"]
+    dialect = validate_dialects(make_rig(instruments).instruments)["source"]
     assert not dialect.supports("tripped")
     assert not dialect.supports("error_query")
 

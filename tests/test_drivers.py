@@ -6,9 +6,10 @@ import math
 
 import pytest
 
-from acquire.clock import VirtualClock
-from drivers.factory import open_instruments, resource_manager_for
-from drivers.interface import CommunicationError, InstrumentError
+from acquire.run.clock import VirtualClock
+from acquire.run.visa_library import resource_manager_for
+from drivers.errors import CommunicationError, InstrumentError
+from drivers.factory import open_instruments
 from sim_instruments.sample_model import BilayerSample, SampleParameters
 from tests.test_drivers_support import OhmicSample, make_rig, simulated, standard_instruments
 
@@ -188,7 +189,7 @@ def test_current_beyond_the_rigs_limit_is_refused_before_sending() -> None:
         with pytest.raises(InstrumentError, match="limit") as raised:
             drivers["source"].set_current(25e-3)  # the rig allows 20 mA
         assert raised.value.instrument == "source"
-        assert simulated_rig.world.programmed_current() == 0.0
+        assert simulated_rig.world.instruments['source'].programmed_current() == 0.0
         with pytest.raises(InstrumentError, match="limit"):
             drivers["magnet"].set_target(2.5)  # the rig allows 2 T
 
@@ -198,7 +199,7 @@ def test_reset_turns_the_output_off() -> None:
         drivers["source"].set_current(1e-3)
         drivers["source"].set_output(True)
         drivers["source"].reset()
-        assert simulated_rig.world.applied_current() == 0.0
+        assert simulated_rig.world.instruments['source'].applied_current() == 0.0
         assert drivers["source"].errors() == []
 
 

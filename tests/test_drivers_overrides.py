@@ -7,10 +7,10 @@ from pathlib import Path
 
 import pytest
 
-from acquire.clock import VirtualClock
-from acquire.load import load_rig
-from acquire.rig import Rig
-from drivers.interface import InstrumentError
+from acquire.inputs.load import load_rig
+from acquire.run.clock import VirtualClock
+from drivers.errors import InstrumentError
+from drivers.rig import Rig
 from tests.test_drivers_support import OhmicSample, simulated
 
 ODD_RIG = r"""
@@ -82,7 +82,7 @@ def test_the_default_verb_is_unknown_to_an_instrument_with_another(odd_rig: Rig)
         raw.write("SOUR:CURR 0.001")
         assert raw.query("SYST:ERR?") == '-113,"Undefined header"'
         raw.close()
-        assert simulated_rig.world.programmed_current() == 0.0
+        assert simulated_rig.world.instruments['source'].programmed_current() == 0.0
 
 
 def test_a_serial_rotator_without_scpi(odd_rig: Rig) -> None:

@@ -8,7 +8,7 @@ import pytest
 
 from acquire.errors import InputError
 from drivers.factory import open_instruments
-from drivers.voltmeter import DialectVoltmeter
+from drivers.roles.voltmeter import DialectVoltmeter
 from tests.test_drivers_support import OhmicSample, make_rig, simulated, standard_instruments
 
 

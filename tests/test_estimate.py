@@ -7,8 +7,8 @@ from pathlib import Path
 
 import pytest
 
-from acquire.estimate import Estimate, estimate, format_duration
-from acquire.load import check_pair, load_protocol, load_rig
+from acquire.inputs.load import check_pair, load_protocol, load_rig
+from acquire.plan.estimate import Estimate, estimate, format_duration
 from tests.conftest import PROTOCOLS, SIMULATED_RIG, CliResult
 
 MakeProtocol = Callable[..., Path]

@@ -17,15 +17,15 @@ from typing import Any
 import pandas as pd
 import pytest
 
-from acquire.clock import RealClock
-from acquire.instrument_set import Instruments
-from acquire.load import load_protocol, load_rig
-from acquire.runner import Runner
-from acquire.store import AppendTable
-from acquire.tables import POINT_COLUMN_SPECS, READING_COLUMNS
-from drivers.field_supply import DialectFieldSupply
-from drivers.interface import CommunicationError, InstrumentError
+from acquire.inputs.load import load_protocol, load_rig
+from acquire.run.clock import RealClock
+from acquire.run.instruments import Instruments
+from acquire.run.runner import Runner
+from acquire.run.serve import served_rig
+from acquire.store.append_table import AppendTable
+from drivers.errors import CommunicationError, InstrumentError
 from drivers.replies import FlagReply, ScpiErrorReply
+from drivers.roles.field import DialectFieldSupply
 from sim_instruments.faults import (
     LINE_NOISE,
     Fault,
@@ -34,7 +34,6 @@ from sim_instruments.faults import (
     garble,
     parse_stall,
 )
-from sim_instruments.socket_server import SocketRig
 from tests.conftest import SIMULATED_RIG, run_cli
 from tests.test_socket_server import POINTS, PROTOCOL, RIG, assert_complete, run_served
 
@@ -131,7 +130,7 @@ DROP_SEED = 7
 def test_one_percent_faults_are_retried_and_flagged(tmp_path: Path, short_backoff: None) -> None:
     out = tmp_path / "run"
     plan = FaultPlan.from_rates(fault_rate=0.01, seed=ONE_PERCENT_SEED)
-    with SocketRig(PROTOCOL, RIG, seed=4, faults=plan) as served:
+    with served_rig(PROTOCOL, RIG, seed=4, faults=plan) as served:
         assert run_served(served, out, tmp_path) == 0
         events = list(served.faults.events)
     # The premise: faults of every kind were injected, after each instrument's identity query.
@@ -158,7 +157,7 @@ def test_a_dropped_connection_is_reopened_and_the_run_goes_on(
 ) -> None:
     out = tmp_path / "run"
     plan = FaultPlan(drop_rate=0.01, seed=DROP_SEED)
-    with SocketRig(PROTOCOL, RIG, seed=4, faults=plan) as served:
+    with served_rig(PROTOCOL, RIG, seed=4, faults=plan) as served:
         assert run_served(served, out, tmp_path) == 0
         dropped = [event.instrument for event in served.faults.events]
         accepted = {name: served.instruments[name].accepted for name in served.instruments}
@@ -176,13 +175,13 @@ def test_a_stalled_voltmeter_stops_the_run_safely_and_resume_completes_it(
     tmp_path: Path, short_backoff: None
 ) -> None:
     out = tmp_path / "run"
-    with SocketRig(PROTOCOL, RIG, seed=4, faults=FaultPlan(stall_after={"vxx": 40})) as served:
+    with served_rig(PROTOCOL, RIG, seed=4, faults=FaultPlan(stall_after={"vxx": 40})) as served:
         started = time.monotonic()
         assert run_served(served, out, tmp_path) == 1
         elapsed = time.monotonic() - started
         # The safe state, read from the simulated source itself.
-        assert served.world.source.level_A == 0.0
-        assert served.world.source.output is False
+        assert served.world.instruments['source'].level_A == 0.0
+        assert served.world.instruments['source'].output is False
         status = json.loads((out / "status.json").read_text())
         assert status["state"] == "failed"
         assert 0 < status["points_done"] < POINTS
@@ -194,7 +193,8 @@ def test_a_stalled_voltmeter_stops_the_run_safely_and_resume_completes_it(
         assert elapsed < 10.0
         served.answer_again("vxx")
         assert run_cli(["resume", str(out), "--quiet"]).code == 0
-        assert served.world.source.output is False  # the finished run left it safe again
+        # the finished run left it safe again
+        assert served.world.instruments['source'].output is False
     assert_complete(out)
     assert json.loads((out / "status.json").read_text())["state"] == "done"
 
@@ -302,11 +302,11 @@ def release() -> Iterator[threading.Event]:
     event.set()
 
 
-def runner_with(tmp_path: Path, protocol: Path, rig: Path, instruments: Instruments) -> Runner:
-    readings = AppendTable(tmp_path / "readings.csv", READING_COLUMNS, "test")
-    points = AppendTable(tmp_path / "points.csv", POINT_COLUMN_SPECS, "test")
-    return Runner(load_protocol(protocol), load_rig(rig), instruments, RealClock(), readings,
-                  points)
+def runner_with(tmp_path: Path, protocol: Path, rig: Path, opened: dict[str, Any]) -> Runner:
+    loaded = load_protocol(protocol)
+    tables = {schema.file_name: AppendTable(tmp_path, schema) for schema in loaded.mode.tables()}
+    loaded_rig = load_rig(rig)
+    return Runner(loaded, loaded_rig, Instruments(loaded_rig.rig, opened), RealClock(), tables)
 
 
 def test_shutdown_makes_the_current_safe_first(
@@ -315,11 +315,8 @@ def test_shutdown_makes_the_current_safe_first(
     protocol = make_protocol("{axis: current, values: [1 mA]}",
                              finish="{current: off, field: zero, temperature: 290 K}")
     calls: list[tuple[str, str, Any]] = []
-    instruments = Instruments(
-        source=Recorder("source", calls), voltmeters={"vxx": Recorder("vxx", calls)},
-        field=Recorder("magnet", calls), temperature=Recorder("cryo", calls),
-        names={"current_source": "source", "field": "magnet", "temperature": "cryo"},
-    )
+    instruments = {"source": Recorder("source", calls), "vxx": Recorder("vxx", calls),
+                   "magnet": Recorder("magnet", calls), "cryo": Recorder("cryo", calls)}
     assert runner_with(tmp_path, protocol, SIMULATED_RIG, instruments).shutdown() == []
     assert calls == [("source", "set_current", 0.0), ("source", "set_output", False),
                      ("magnet", "set_target", 0.0), ("cryo", "set_setpoint", 290.0)]
@@ -335,12 +332,11 @@ def test_shutdown_is_bounded_when_the_source_hangs_and_does_not_retry(
     def refuse() -> None:
         raise CommunicationError("cryo", "SETP A,290.000", "Broken pipe")
 
-    instruments = Instruments(
-        source=Recorder("source", calls, {"set_current": lambda: release.wait(30.0)}),
-        voltmeters={"vxx": Recorder("vxx", calls)},
-        temperature=Recorder("cryo", calls, {"set_setpoint": refuse}),
-        names={"current_source": "source", "temperature": "cryo"},
-    )
+    instruments = {
+        "source": Recorder("source", calls, {"set_current": lambda: release.wait(30.0)}),
+        "vxx": Recorder("vxx", calls),
+        "cryo": Recorder("cryo", calls, {"set_setpoint": refuse}),
+    }
     runner = runner_with(tmp_path, protocol, RIG, instruments)
     started = time.monotonic()
     problems = runner.shutdown()
@@ -360,9 +356,7 @@ def test_shutdown_reopens_a_session_lost_in_a_failed_reconnect(
 ) -> None:
     protocol = make_protocol("{axis: current, values: [1 mA]}")
     calls: list[tuple[str, str, Any]] = []
-    instruments = Instruments(source=Recorder("source", calls),
-                              voltmeters={"vxx": Recorder("vxx", calls)},
-                              names={"current_source": "source"})
+    instruments = {"source": Recorder("source", calls), "vxx": Recorder("vxx", calls)}
     runner = runner_with(tmp_path, protocol, RIG, instruments)
     runner._disconnected.add("source")
     assert runner.shutdown() == []

@@ -14,7 +14,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from acquire.fit_tables import (
+from acquire.analysis.fit_tables import (
     FIT_COLUMN_NAMES,
     FitOptions,
     RunContext,

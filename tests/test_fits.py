@@ -8,14 +8,13 @@ import numpy as np
 import pytest
 from scipy.optimize import curve_fit
 
-from acquire.fits import (
-    carrier_current_density,
+from acquire.analysis.fits import (
     fit_field_dependence,
     fit_harmonics,
     fit_harmonics_by_group,
     ratio_with_error,
-    second_harmonic_offset_deg,
 )
+from acquire.inputs.stack import carrier_density_per_ampere, layers_from_records
 
 TRUE_HARMONICS = np.array([850.0, 0.03, -0.5, 1.25, 0.4])
 # curve_fit's default stopping tolerances (1.5e-8) leave ~1e-7 ohm on a 850 ohm baseline.
@@ -155,75 +154,10 @@ def test_grouped_fit_equals_separate_fits_and_flags_undetermined_groups() -> Non
     assert fits.n_points.tolist() == [29, 29, 29, 6]
 
 
-@pytest.mark.parametrize(
-    ("offset", "reference", "expected"),
-    [(7.0, 0.0, 7.0), (-20.0, 0.0, -20.0), (60.0, 0.0, -30.0), (5.0, 45.0, 5.0)],
-)
-def test_offset_from_the_second_harmonic_phase(offset: float, reference: float, expected: float):
-    # Source: angle-difference identity, A cos 2(phi - p) = A cos 2p cos 2phi + A sin 2p sin 2phi,
-    # so a clean A cos 2(phi - reference - offset) has its offset read back exactly; an
-    # offset of 60 deg is the same curve as -30 deg with the opposite sign of A.
-    angle = np.arange(0.0, 360.0, 10.0)
-    values = 2.0 * np.cos(np.radians(2 * (angle - reference - offset)))
-    fit = fit_harmonics(angle, values, np.full(angle.size, 1e-3))
-    cov = fit.covariance
-    found, error = second_harmonic_offset_deg(
-        fit.coefficients[3], fit.coefficients[4], cov[3, 3], cov[4, 4], cov[3, 4], reference
-    )
-    assert float(found) == pytest.approx(expected, abs=1e-9)
-    # first-order error: sigma_a2 / (2A) radians for orthogonal, equal-variance a2 and b2
-    assert float(error) == pytest.approx(math.degrees(fit.errors[3] / (2 * 2.0)), rel=1e-6)
-
-
-def test_parallel_resistor_current_density_worked_by_hand() -> None:
-    # Worked by hand: W 5 nm at 120 uohm cm = 1.2e-6 ohm m, CoFeB 2 nm at 150 uohm cm =
-    # 1.5e-6 ohm m (1 uohm cm = 1e-8 ohm m), channel 4 um wide, I = 1 mA.
-    #   sheet conductances: W 5e-9/1.2e-6 = 4.1667e-3 S, CoFeB 2e-9/1.5e-6 = 1.3333e-3 S
-    #   sum 5.5e-3 S; share in W 4.1667/5.5 = 25/33 = 0.75758
-    #   current in W 0.75758 mA through 4e-6 m * 5e-9 m = 2e-14 m^2
-    #   j_W = 7.5758e-4 A / 2e-14 m^2 = 3.7879e10 A/m^2 (exactly 1.25e12/33)
-    layers = [
-        {"name": "CoFeB", "thickness_m": 2e-9, "resistivity_ohm_m": 1.5e-6},
-        {"name": "W", "thickness_m": 5e-9, "resistivity_ohm_m": 1.2e-6, "carrier": True},
-    ]
-    density = carrier_current_density(1e-3, 4e-6, layers)
-    assert float(density) == pytest.approx(1.25e12 / 33, rel=1e-12)
-    # Measured stack sheet resistance 200 ohm instead of the model's 1/5.5e-3 = 181.8 ohm:
-    #   share in W = 200 * 4.1667e-3 = 0.83333; j_W = 8.3333e-4 / 2e-14 = 4.1667e10 A/m^2
-    measured = carrier_current_density(1e-3, 4e-6, layers, sheet_resistance_ohm=200.0)
-    assert float(measured) == pytest.approx(200 * (5e-9 / 1.2e-6) * 1e-3 / 2e-14, rel=1e-12)
-    assert float(measured) == pytest.approx(4.1667e10, rel=1e-4)
-    # linear in the current, element-wise for arrays
-    np.testing.assert_allclose(
-        carrier_current_density(np.array([1e-3, -3e-3]), 4e-6, layers),
-        [1.25e12 / 33, -3 * 1.25e12 / 33],
-    )
-
-
-@pytest.mark.parametrize(
-    "layers",
-    [
-        [],
-        [
-            {"thickness_m": 2e-9, "resistivity_ohm_m": 1e-6},
-            {"thickness_m": 5e-9, "resistivity_ohm_m": 1e-6},
-        ],
-        [
-            {"thickness_m": 2e-9, "resistivity_ohm_m": 1e-6, "carrier": True},
-            {"thickness_m": 5e-9, "resistivity_ohm_m": 1e-6, "carrier": True},
-        ],
-        [{"thickness_m": 0.0, "resistivity_ohm_m": 1e-6, "carrier": True}],
-    ],
-)
-def test_current_density_refuses_an_ill_defined_stack(layers: list[dict[str, object]]) -> None:
-    with pytest.raises(ValueError):
-        carrier_current_density(1e-3, 4e-6, layers)
-
-
 def test_a_single_unmarked_layer_carries_all_the_current() -> None:
     # one 10 nm film, 2 um wide: 1 mA / (2e-6 m * 1e-8 m) = 5e10 A/m^2
-    layer = {"thickness_m": 1e-8, "resistivity_ohm_m": 1e-7}
-    assert float(carrier_current_density(1e-3, 2e-6, [layer])) == pytest.approx(5e10)
+    layers = layers_from_records([{"thickness_m": 1e-8, "resistivity_ohm_m": 1e-7}])
+    assert 1e-3 * carrier_density_per_ampere(2e-6, layers) == pytest.approx(5e10)
 
 
 def test_inverse_field_form_recovers_known_parameters() -> None:

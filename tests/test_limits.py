@@ -7,17 +7,17 @@ from pathlib import Path
 
 import pytest
 
-from acquire.current_division import (
+from acquire.inputs.load import load_protocol, load_rig
+from acquire.inputs.stack import (
     LayerShare,
+    StackGeometry,
     carrier_density_per_ampere,
     channel_resistance,
     current_fractions,
     layer_current_densities,
     sheet_conductance,
 )
-from acquire.limits import check_limits
-from acquire.load import load_protocol, load_rig
-from acquire.sample_geometry import SampleGeometry
+from acquire.plan.limits import check_limits
 from tests.conftest import SIMULATED_RIG, CliResult
 
 Cli = Callable[[list[str]], CliResult]
@@ -60,7 +60,7 @@ def test_measured_sheet_resistance_sets_the_shares() -> None:
 
 def test_worked_example_from_a_protocol(make_protocol: MakeProtocol) -> None:
     loaded = load_protocol(make_protocol("{axis: current, values: [1 mA, 3 mA]}"))
-    geometry = SampleGeometry.from_sample(loaded.protocol.sample)
+    geometry = StackGeometry.from_sample(loaded.protocol.sample)
     assert geometry.carrier_name == "Pt"
     assert geometry.densities(3e-3) == pytest.approx({"NiFe": 5.625e10, "Pt": 7.5e10}, rel=1e-9)
     report = check_limits(loaded, load_rig(SIMULATED_RIG))

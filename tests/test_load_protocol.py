@@ -9,7 +9,7 @@ import pytest
 import yaml
 
 from acquire.errors import InputError, format_key_path
-from acquire.load import load_protocol
+from acquire.inputs.load import load_protocol
 from tests.conftest import DEMO_SAMPLE, PROTOCOLS, SIMULATED_RIG, CliResult
 
 Write = Callable[[str, str], Path]

@@ -9,8 +9,11 @@ from pathlib import Path
 import pytest
 
 from acquire.errors import InputError
-from acquire.load import check_pair, did_you_mean, load_protocol, load_rig
-from acquire.rig import ROLE_SETTINGS, ROLES, HardwareLimits, Instrument, Rig
+from acquire.inputs.load import check_pair, load_protocol, load_rig
+from acquire.inputs.pydantic_errors import did_you_mean
+from drivers.rig import Rig
+from drivers.roles import all_roles, role_named, role_names
+from drivers.spec import COMMON_KEYS
 from tests.conftest import PROTOCOLS, SIMULATED_RIG
 
 TEMPLATE = PROTOCOLS / "rigs" / "real_rig_template.yaml"
@@ -41,11 +44,10 @@ def test_simulated_rig_values_in_si() -> None:
     assert (stage.speed, stage.backlash) == (pytest.approx(10.0), pytest.approx(2.0))
     assert rig.instruments["cryo"].rate == pytest.approx(5 / 60)  # 5 K/min in K/s
     # min/max are read by role: degrees for the rotator, kelvin for the controller
-    assert loaded.ranges == {
-        ("stage", "min"): pytest.approx(-10.0), ("stage", "max"): pytest.approx(370.0),
-        ("cryo", "min"): pytest.approx(2.0), ("cryo", "max"): pytest.approx(400.0),
-    }
-    assert set(rig.by_role("voltmeter")) == {"vxx", "vxy"}
+    assert (stage.limits.min, stage.limits.max) == (pytest.approx(-10.0), pytest.approx(370.0))
+    cryo = rig.instruments["cryo"]
+    assert (cryo.limits.min, cryo.limits.max) == (pytest.approx(2.0), pytest.approx(400.0))
+    assert set(rig.of_role(role_named("voltmeter"))) == {"vxx", "vxy"}
 
 
 def test_rig_extends_a_base_rig(write: Write) -> None:
@@ -84,11 +86,11 @@ def test_role_checks(write: Write, text: str, expect: str, key: tuple) -> None:
     assert caught.value.key == key
 
 
-def test_every_role_setting_is_a_field_of_instrument() -> None:
-    # The role table and the model must agree, or a setting could never be written.
-    for role, settings in ROLE_SETTINGS.items():
-        assert role in ROLES
-        assert settings <= set(Instrument.model_fields), role
+def test_every_role_is_one_spec_model_with_its_role_name() -> None:
+    # The registry and the models must agree, or an entry could never be written.
+    for role in all_roles():
+        assert role.spec.model_fields["role"].annotation.__args__ == (role.name,)
+        assert not (role.setting_keys & COMMON_KEYS), role.name
 
 
 # --- the template for a real rig --------------------------------------------------------------
@@ -97,14 +99,15 @@ def test_every_role_setting_is_a_field_of_instrument() -> None:
 def test_template_loads_and_uses_pyvisa_py() -> None:
     rig = load_rig(TEMPLATE).rig
     assert rig.visa_library == "@py"
-    assert {spec.role for spec in rig.instruments.values()} == set(ROLES)
+    assert {spec.role for spec in rig.instruments.values()} == set(role_names())
     assert not rig.simulation
 
 
 def test_template_explains_every_key() -> None:
     text = TEMPLATE.read_text(encoding="utf-8")
     comments = "\n".join(line for line in text.splitlines() if line.lstrip().startswith("#"))
-    keys = set(Rig.model_fields) | set(Instrument.model_fields) | set(HardwareLimits.model_fields)
+    keys = set(Rig.model_fields) | {
+        key for role in all_roles() for key in (*role.spec.model_fields, *role.limit_keys)}
     for key in sorted(keys):
         assert re.search(rf"\b{key}\b", comments), f"the template's comments never explain {key!r}"
 
@@ -142,6 +145,6 @@ def test_a_finish_temperature_needs_a_controller(
 
 
 def test_did_you_mean() -> None:
-    assert did_you_mean("voltmetre", ROLES) == "did you mean 'voltmeter'?"
+    assert did_you_mean("voltmetre", role_names()) == "did you mean 'voltmeter'?"
     assert did_you_mean("vx", ["vxx", "vxy", "magnet"]) == "did you mean 'vxx' or 'vxy'?"
-    assert did_you_mean("qqqq", ROLES) is None
+    assert did_you_mean("qqqq", role_names()) is None

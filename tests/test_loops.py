@@ -8,9 +8,9 @@ from pathlib import Path
 
 import pytest
 
-from acquire.load import load_protocol
-from acquire.loops import LoopSpecError, expand
-from acquire.schedule import LoopPlan, Point, iterate_points, plans_from
+from acquire.inputs.load import load_protocol
+from acquire.inputs.loops import LoopSpecError, expand
+from acquire.plan.schedule import LoopPlan, Point, iterate_points, plans_from
 
 REL = 1e-12  # values are tidied to 12 significant digits
 
@@ -132,7 +132,7 @@ def test_there_and_back_needs_two_values() -> None:
 
 
 def angles_of(points: list[Point]) -> list[float | None]:
-    return [point.angle_deg for point in points]
+    return [point.setpoint("angle") for point in points]
 
 
 def test_snake_reverses_on_alternate_passes_and_never_rewinds() -> None:
@@ -157,7 +157,7 @@ def test_snake_counts_passes_across_all_outer_loops() -> None:
 def test_snake_of_a_middle_loop_moves_the_inner_loop_with_it() -> None:
     plans = [LoopPlan("field", (0.1, 0.2)), LoopPlan("angle", (0, 90), snake=True),
              LoopPlan("current", (1e-3, 2e-3))]
-    pairs = [(p.field_T, p.angle_deg, p.current_A) for p in iterate_points(plans)]
+    pairs = [(p.setpoint("field"), p.setpoint("angle"), p.current_A) for p in iterate_points(plans)]
     assert pairs == [
         (0.1, 0, 1e-3), (0.1, 0, 2e-3), (0.1, 90, 1e-3), (0.1, 90, 2e-3),
         (0.2, 90, 1e-3), (0.2, 90, 2e-3), (0.2, 0, 1e-3), (0.2, 0, 2e-3),

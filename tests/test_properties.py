@@ -433,28 +433,27 @@ def assert_within_limits(world: Any, case: Case, text_rounding: bool = True) -> 
     """`text_rounding=False`: no allowance for the known rounding of command text."""
     field_rel = FIELD_TEXT_REL if text_rounding else REL
     angle_abs = ANGLE_TEXT_DEG if text_rounding else 1e-9
-    seen = world.extremes
-    if seen.current_A is not None:
-        assert seen.current_A <= case.current_max_A * (1 + REL), (
-            f"source asked for {seen.current_A!r} A, limit {case.current_max_A!r} A")
-    for name, value in (("field target", seen.field_target_T),
-                        ("field readback", seen.field_read_T)):
+    largest, span = world.extremes.largest, world.extremes.span
+    if (current := largest.get("current_A")) is not None:
+        assert current <= case.current_max_A * (1 + REL), (
+            f"source asked for {current!r} A, limit {case.current_max_A!r} A")
+    for name, value in (("field target", largest.get("field_target_T")),
+                        ("field readback", largest.get("field_read_T"))):
         if value is not None:
             assert value <= case.field_max_T * (1 + field_rel), (
                 f"{name} {value!r} T, limit {case.field_max_T!r} T")
-    if seen.field_rate_T_per_s is not None:
-        assert seen.field_rate_T_per_s <= case.ramp_max_T_per_s * (1 + field_rel), (
-            f"field ramp rate {seen.field_rate_T_per_s!r} T/s, limit "
-            f"{case.ramp_max_T_per_s!r} T/s")
+    if (rate := largest.get("field_rate_T_per_s")) is not None:
+        assert rate <= case.ramp_max_T_per_s * (1 + field_rel), (
+            f"field ramp rate {rate!r} T/s, limit {case.ramp_max_T_per_s!r} T/s")
     low, high = case.angle_range_deg
-    for name, span in (("rotator target", seen.angle_target_deg),
-                       ("rotator position", seen.angle_read_deg)):
-        if span is not None:
-            assert low - angle_abs <= span[0] and span[1] <= high + angle_abs, (
-                f"{name} reached {span} deg, range {low}..{high} deg")
-    if seen.temperature_setpoint_K is not None:
+    for name, reached in (("rotator target", span.get("angle_target_deg")),
+                          ("rotator position", span.get("angle_read_deg"))):
+        if reached is not None:
+            assert low - angle_abs <= reached[0] and reached[1] <= high + angle_abs, (
+                f"{name} reached {reached} deg, range {low}..{high} deg")
+    if (setpoints := span.get("temperature_setpoint_K")) is not None:
         low, high = case.temperature_range_K
-        lowest, highest = seen.temperature_setpoint_K
+        lowest, highest = setpoints
         assert low - ABS_K <= lowest and highest <= high + ABS_K, (
             f"temperature setpoints {lowest}..{highest} K, allowed {low}..{high} K")
 
@@ -507,8 +506,8 @@ def test_a_valid_protocol_never_takes_an_instrument_past_a_limit_wide(case: Case
 
 def test_the_record_sees_an_excess_when_one_is_sent() -> None:
     """The property above can fail: a world told more than a limit reports it."""
-    from acquire.clock import VirtualClock
-    from acquire.rig import Rig
+    from acquire.run.clock import VirtualClock
+    from drivers.rig import Rig
     from sim_instruments.world import SimulatedWorld
 
     class Flat:
@@ -518,15 +517,20 @@ def test_the_record_sees_an_excess_when_one_is_sent() -> None:
             return type("R", (), {"resistance_ohm": 100.0})()
 
     rig = Rig.model_validate({"name": "r", "instruments": {
-        "source": {"role": "current_source", "resource": "GPIB0::1::INSTR"}}})
+        "source": {"role": "current_source", "resource": "GPIB0::1::INSTR"},
+        "magnet": {"role": "field", "resource": "GPIB0::2::INSTR"},
+        "stage": {"role": "rotator", "resource": "GPIB0::3::INSTR"},
+        "cryo": {"role": "temperature", "resource": "GPIB0::4::INSTR"}}})
     world = SimulatedWorld(VirtualClock(), Flat(), rig)  # type: ignore[arg-type]
+    source, magnet, stage, cryo = (world.instruments[name]
+                                   for name in ("source", "magnet", "stage", "cryo"))
     for amperes in (1e-3, -3e-3, 2e-3):
-        world.set_current(amperes)
-    world.set_field_target(-1.5)
-    world.set_field_rate(0.02)
-    world.move_rotator(-3.0)
-    world.move_rotator(200.0)
-    world.set_temperature_setpoint(5.0)
+        source.set_current(amperes)  # type: ignore[attr-defined]
+    magnet.set_target(-1.5)  # type: ignore[attr-defined]
+    magnet.set_rate(0.02)  # type: ignore[attr-defined]
+    stage.move(-3.0)  # type: ignore[attr-defined]
+    stage.move(200.0)  # type: ignore[attr-defined]
+    cryo.set_setpoint(5.0)  # type: ignore[attr-defined]
     case = Case({}, {}, current_max_A=2.5e-3, field_max_T=2.0, ramp_max_T_per_s=0.05,
                 angle_range_deg=(-10.0, 370.0), temperature_range_K=(2.0, 400.0))
     with pytest.raises(AssertionError, match=r"source asked for 0\.003 A"):

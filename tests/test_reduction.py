@@ -6,7 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
-from acquire.reduction import reduce_blocks, reduce_readings
+from acquire.modes.dc_reversal.reduction import reduce_blocks, reduce_readings
 
 SIGN = {"+": 1, "0": 0, "-": -1}
 

@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from acquire.analysis import fit_run, report_run
-from acquire.fit_tables import FIT_COLUMN_NAMES
+from acquire.analysis.fit_tables import FIT_COLUMN_NAMES
 
 PATTERN = (1, 0, -1)  # "+0-"
 

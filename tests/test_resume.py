@@ -16,7 +16,7 @@ import pandas as pd
 import pytest
 
 from acquire.cli import main
-from acquire.run_folder import RunFolder
+from acquire.store.run_folder import RunFolder
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"

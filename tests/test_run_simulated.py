@@ -11,9 +11,8 @@ import pandas as pd
 import pytest
 
 from acquire.cli import main
-from acquire.load import load_protocol
-from sim_instruments.sample_model import BilayerSample, LayerSI, SampleParameters
-from sim_instruments.world import sample_overrides
+from acquire.inputs.load import load_protocol
+from sim_instruments.sample_model import BilayerSample, SampleParameters
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
@@ -39,18 +38,10 @@ def run(protocol: Path, out: Path, seed: int = 3) -> int:
 
 
 def truth_model(protocol: Path, run_dir: Path) -> BilayerSample:
-    """The simulated sample rebuilt from the protocol and the rig's recorded settings."""
-    sample = load_protocol(protocol).protocol.sample
-    layers = [
-        LayerSI(x.name, x.thickness, x.resistivity, x is sample.carrier) for x in sample.layers
-    ]
-    rig_settings = json.loads((run_dir / "run.json").read_text())["rig"]["normalised"]
-    parameters = SampleParameters.from_geometry(
-        sample.channel.length,
-        sample.channel.width,
-        layers,
-        **sample_overrides(rig_settings["simulation"]),
-    )
+    """The simulated sample rebuilt from the parameters run.json records as the truth."""
+    truth = json.loads((run_dir / "run.json").read_text())["simulation"]["sample"]
+    known = SampleParameters.field_names()
+    parameters = SampleParameters(**{k: v for k, v in truth.items() if k in known})
     return BilayerSample(parameters, "xy", seed=0)
 
 

@@ -8,8 +8,8 @@ import pytest
 import yaml
 
 from acquire.errors import InputError
-from acquire.load import load_rig
-from drivers.factory import resource_manager_for
+from acquire.inputs.load import load_rig
+from acquire.run.visa_library import resource_manager_for
 from drivers.replies import reply_parser
 from sim_instruments.pyvisa_sim_definitions import (
     GENERIC_DEFINITIONS,

@@ -32,7 +32,7 @@ def test_bad_values_go_to_the_error_queue_and_clear_status_empties_it() -> None:
         raw.write("*CLS")
         assert drivers["vxx"].errors() == []
         raw.close()
-        assert simulated_rig.world.meters["vxx"].nplc == 1.0
+        assert simulated_rig.world.instruments["vxx"].nplc == 1.0
 
 
 def test_world_keys_are_kept_out_of_the_sample_parameters() -> None:

@@ -23,11 +23,11 @@ import pyvisa
 import yaml
 
 from acquire.errors import InputError
-from acquire.load import load_protocol, load_rig
+from acquire.inputs.load import load_protocol, load_rig
+from acquire.run.serve import served_rig
+from acquire.run.simulation import sample_for
 from sim_instruments.faults import FaultPlan
-from sim_instruments.sample_model import BilayerSample, LayerSI, SampleParameters
 from sim_instruments.socket_server import SocketRig
-from sim_instruments.world import sample_overrides
 from tests.conftest import run_cli
 
 ROOT = Path(__file__).resolve().parents[1]
@@ -51,7 +51,7 @@ def open_served(resource: str, timeout_s: float = 2.0) -> pyvisa.resources.Messa
 
 @pytest.fixture
 def served() -> Iterator[SocketRig]:
-    with SocketRig(PROTOCOL, RIG, seed=4) as rig:
+    with served_rig(PROTOCOL, RIG, seed=4) as rig:
         yield rig
 
 
@@ -78,14 +78,7 @@ def assert_complete(out: Path) -> pd.DataFrame:
 
 def true_resistance_ohm(current_A: float) -> float:
     """The sample model's expected even part, rebuilt from the protocol and the rig file."""
-    sample = load_protocol(PROTOCOL).protocol.sample
-    layers = [LayerSI(x.name, x.thickness, x.resistivity, x is sample.carrier)
-              for x in sample.layers]
-    parameters = SampleParameters.from_geometry(
-        sample.channel.length, sample.channel.width, layers,
-        **sample_overrides(load_rig(RIG).rig.simulation),
-    )
-    model = BilayerSample(parameters, "xy", seed=0)
+    model = sample_for(load_protocol(PROTOCOL), load_rig(RIG), seed=0)
     model.apply_field(0.0, 0.0)  # the served world starts at 0 T, 0 deg
     return float(model.expected("longitudinal", current_A, 300.0).resistance_ohm)
 
@@ -145,12 +138,13 @@ def test_full_run_against_the_served_rig(served: SocketRig, tmp_path: Path) -> N
         # 1e-4 of R at these currents; the margin covers the thermal drift of the real clock.
         assert row.resistance_ohm == pytest.approx(true_resistance_ohm(row.current_A), rel=2e-3)
     # The run left the source safe.
-    assert served.world.source.output is False and served.world.source.level_A == 0.0
+    source = served.world.instruments["source"]
+    assert source.output is False and source.level_A == 0.0
 
 
 def test_a_busy_port_is_an_input_error(served: SocketRig) -> None:
     taken = int(served.resources["source"].split("::")[2])
-    second = SocketRig(PROTOCOL, RIG, port_base=taken)
+    second = served_rig(PROTOCOL, RIG, port_base=taken)
     try:
         with pytest.raises(InputError, match=f"cannot listen on 127.0.0.1:{taken}"):
             second.start()
@@ -261,7 +255,7 @@ def test_serve_command_serves_then_stops_cleanly_on_a_signal(
 
 def test_delay_is_added_to_every_reply(tmp_path: Path) -> None:
     delay_s = 0.2
-    with SocketRig(PROTOCOL, RIG, faults=FaultPlan(delay_s=delay_s)) as rig:
+    with served_rig(PROTOCOL, RIG, faults=FaultPlan(delay_s=delay_s)) as rig:
         vxx = open_served(rig.resources["vxx"])
         try:
             started = time.monotonic()

@@ -16,8 +16,8 @@ import pint
 import pytest
 from scipy.constants import mu_0  # CODATA recommended value, as shipped with scipy
 
-from acquire import units
-from acquire.units import UnitError, to_si
+from drivers import units
+from drivers.units import UnitError, to_si
 
 PREFIX_REL = 1e-12
 MU0_REL = 1e-9

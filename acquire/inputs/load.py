@@ -1,0 +1,209 @@
+"""Load and validate protocol and rig files into models, or raise one clear InputError."""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+from pathlib import Path
+from typing import Any
+
+from acquire.errors import InputError
+from acquire.inputs import loops as loop_values
+from acquire.inputs.protocol import CURRENT_AXIS
+from acquire.inputs.pydantic_errors import did_you_mean, validate
+from acquire.inputs.yaml_source import LoadedDocument, SourceMap, load_document
+from acquire.modes import DEFAULT_MODE, mode_named, mode_names
+from acquire.modes.base import AcquisitionMode
+from drivers.dialect import dialect_for
+from drivers.rig import Rig
+from drivers.roles import all_roles, movable_axes, role_named, role_names, role_of_axis
+
+
+@dataclass(frozen=True)
+class LoadedProtocol:
+    protocol: Any  # the mode's protocol model (acquire.inputs.protocol.ProtocolBase)
+    document: LoadedDocument
+    path: Path
+    loop_values: tuple[tuple[float, ...], ...]  # one pass of each loop, outermost first
+    mode: AcquisitionMode
+
+    def values_of(self, axis: str) -> tuple[float, ...]:
+        index = self.loop_index(axis)
+        return self.loop_values[index] if index is not None else ()
+
+    def loop_index(self, axis: str) -> int | None:
+        return next((i for i, loop in enumerate(self.protocol.loops) if loop.axis == axis),
+                    None)
+
+
+@dataclass(frozen=True)
+class LoadedRig:
+    rig: Rig
+    document: LoadedDocument
+    path: Path
+
+
+def _mode_of(document: LoadedDocument) -> AcquisitionMode:
+    name = document.data.get("mode", DEFAULT_MODE)
+    if not isinstance(name, str) or name not in mode_names():
+        raise document.source.error(
+            f"unknown mode {name!r}", ("mode",),
+            did_you_mean(str(name), mode_names()) or f"use one of {', '.join(mode_names())}",
+        )
+    return mode_named(name)
+
+
+def _expand_loops(protocol: Any, source: SourceMap) -> tuple[tuple[float, ...], ...]:
+    seen: dict[str, int] = {}
+    result = []
+    for index, loop in enumerate(protocol.loops):
+        if loop.axis in seen:
+            raise source.error(
+                f"axis {loop.axis!r} is swept twice (also loops[{seen[loop.axis]}])",
+                ("loops", index, "axis"), "merge the two loops into one",
+            )
+        seen[loop.axis] = index
+        if loop.snake and index == 0:
+            raise source.error(
+                "'snake' needs an outer loop whose passes it alternates",
+                ("loops", index, "snake"), "remove 'snake: true' from the outermost loop",
+            )
+        try:
+            values = loop_values.expand(
+                values=loop.values, start=loop.start, stop=loop.stop, step=loop.step,
+                num=loop.num, spacing=loop.spacing, there_and_back=loop.return_,
+            )
+        except loop_values.LoopSpecError as error:
+            raise source.error(error.problem, ("loops", index, error.key), error.fix) from None
+        _check_axis_values(loop.axis, values, index, source, loop.values is not None)
+        result.append(values)
+    if CURRENT_AXIS not in seen:
+        raise source.error(
+            "no current loop", ("loops",), "add e.g. '- {axis: current, values: [1 mA]}'"
+        )
+    return tuple(result)
+
+
+def _check_axis_values(
+    axis: str, values: tuple[float, ...], index: int, source: SourceMap, explicit: bool
+) -> None:
+    moved = next((a for a in movable_axes() if a.name == axis), None)
+    for position, value in enumerate(values):
+        key = ("loops", index, "values", position) if explicit else ("loops", index)
+        if axis == CURRENT_AXIS and value <= 0:
+            raise source.error(
+                f"current amplitude {value:g} A must be positive", key,
+                "the alternation pattern sets the sign; give amplitudes > 0",
+            )
+        problem = moved.value_problem(value) if moved is not None else None
+        if problem is not None:
+            raise source.error(problem[0], key, problem[1])
+
+
+def load_protocol(path: Path) -> LoadedProtocol:
+    document = load_document(path)
+    mode = _mode_of(document)
+    protocol = validate(mode.protocol_model, document)
+    if protocol.limits.current is None and protocol.limits.current_density is None:
+        raise document.source.error(
+            "sets no current limit for the sample", ("limits",),
+            "add 'current: 5 mA' or 'current_density: 1e11 A/m^2' under limits",
+        )
+    values = _expand_loops(protocol, document.source)
+    loaded = LoadedProtocol(protocol, document, path, values, mode)
+    mode.check(loaded)
+    return loaded
+
+
+def _located(source: SourceMap, error: InputError, prefix: tuple[str | int, ...] = ()
+             ) -> InputError:
+    return source.error(error.problem, (*prefix, *error.key), error.fix)
+
+
+def _check_instruments(rig: Rig, source: SourceMap) -> None:
+    for name, spec in rig.instruments.items():
+        try:
+            role_named(spec.role).check(spec)
+        except InputError as error:
+            raise _located(source, error, ("instruments", name)) from None
+    resources: dict[str, str] = {}
+    for name, spec in rig.instruments.items():
+        if spec.resource in resources:
+            raise source.error(
+                f"resource {spec.resource!r} is also used by {resources[spec.resource]!r}",
+                ("instruments", name, "resource"), "give each instrument its own address",
+            )
+        resources[spec.resource] = name
+    for role in all_roles():
+        count = len(rig.of_role(role))
+        if role.required and count == 0:
+            raise source.error(f"has no {role.name}", ("instruments",), "add one")
+        if role.at_most_one and count > 1:
+            article = "" if role.required else " instrument"
+            raise source.error(
+                f"has more than one {role.name}{article}", ("instruments",),
+                f"keep one {role.name.replace('_', ' ')}" if role.required else "keep one",
+            )
+    for name, spec in rig.instruments.items():
+        try:
+            dialect_for(name, spec)
+        except InputError as error:
+            raise _located(source, error) from None
+
+
+def load_rig(path: Path) -> LoadedRig:
+    document = load_document(path)
+    instruments = document.data.get("instruments")
+    if isinstance(instruments, dict):
+        for name, spec in instruments.items():
+            role = spec.get("role") if isinstance(spec, dict) else None
+            if isinstance(role, str) and role not in role_names():
+                raise document.source.error(
+                    f"unknown role {role!r}",
+                    ("instruments", name, "role"),
+                    did_you_mean(role, role_names()) or f"use one of {', '.join(role_names())}",
+                )
+    rig: Rig = validate(Rig, document)
+    _check_instruments(rig, document.source)
+    return LoadedRig(rig, document, path)
+
+
+def check_pair(protocol: LoadedProtocol, rig: LoadedRig) -> None:
+    """Does the rig have what the protocol needs? (Limits are checked in acquire.plan.limits.)"""
+    source = protocol.document.source
+    mode = protocol.mode
+    wanted = mode.channel_role
+    candidates = rig.rig.of_role(role_named(wanted))
+    for index, channel in enumerate(mode.channels(protocol.protocol)):
+        if channel not in rig.rig.instruments:
+            raise source.error(
+                f"channel {channel!r} is not an instrument of rig {rig.rig.name!r}",
+                ("readings", "channels", index),
+                did_you_mean(channel, list(candidates))
+                or f"the rig's {wanted}s are: {', '.join(candidates) or 'none'}",
+            )
+        if rig.rig.instruments[channel].role != wanted:
+            raise source.error(
+                f"channel {channel!r} is a {rig.rig.instruments[channel].role}, not a {wanted}",
+                ("readings", "channels", index), f"list {wanted}s only",
+            )
+    movable = {axis.name for axis in movable_axes()}
+    for index, loop in enumerate(protocol.protocol.loops):
+        if loop.axis in movable and not rig.rig.of_role(role_of_axis(loop.axis)):
+            role = role_of_axis(loop.axis).name
+            raise source.error(
+                f"sweeps {loop.axis} but rig {rig.rig.name!r} has no {role} instrument",
+                ("loops", index, "axis"), f"add a {role} to the rig or remove this loop",
+            )
+    if rig.rig.simulation:
+        # Settings for simulated runs: a typo there should fail now, not at the rehearsal.
+        from acquire.run.simulation import sample_for
+
+        sample_for(protocol, rig, seed=None)
+    finish = protocol.protocol.finish
+    for axis in movable:
+        target = getattr(finish, axis, None)
+        if isinstance(target, float) and not rig.rig.of_role(role_of_axis(axis)):
+            raise source.error(
+                f"sets a finish {axis} but the rig has no {role_of_axis(axis).name} instrument",
+                ("finish", axis), f"use '{axis}: hold'",
+            )

@@ -1,0 +1,184 @@
+"""The protocol file: what to sweep on which sample, within which limits (validated on load).
+
+The sections every acquisition mode shares are here; a mode adds its own (acquire/modes/).
+The loop axes and their `waits` sections come from the roles that move them (drivers/roles/),
+so a new role's axis needs no change here.
+"""
+
+from __future__ import annotations
+
+from typing import Annotated, Any, Literal, Union
+
+from pydantic import (
+    BaseModel,
+    ConfigDict,
+    Discriminator,
+    Field,
+    WithJsonSchema,
+    create_model,
+    field_validator,
+)
+
+from drivers.quantities import (
+    Current,
+    CurrentDensity,
+    Length,
+    Resistance,
+    Resistivity,
+    Temperature,
+)
+from drivers.quantities import Field as FieldQuantity
+from drivers.roles import movable_axes
+
+CURRENT_AXIS = "current"  # the excitation amplitude: every mode sweeps it
+ROTATION_PLANES = ("xy", "zx", "zy")
+
+
+def axis_names() -> tuple[str, ...]:
+    """Every loop axis, outermost-first order of the tables' columns, the current last."""
+    return (*(axis.name for axis in movable_axes()), CURRENT_AXIS)
+
+
+class Strict(BaseModel):
+    model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+
+class Layer(Strict):
+    name: str = Field(min_length=1)
+    thickness: Length = Field(gt=0)
+    resistivity: Resistivity = Field(gt=0)
+    carrier: bool = Field(default=False, description="the layer whose current density matters")
+
+
+class ChannelGeometry(Strict):
+    length: Length = Field(gt=0, description="distance between the voltage probes")
+    width: Length = Field(gt=0)
+
+
+class Sample(Strict):
+    id: str = Field(min_length=1)
+    stack: str = ""
+    channel: ChannelGeometry
+    layers: list[Layer] = Field(min_length=1)
+    sheet_resistance: Resistance | None = Field(
+        default=None, gt=0, description="measured sheet resistance of the whole stack, if known"
+    )
+
+    @field_validator("layers")
+    @classmethod
+    def one_carrier(cls, layers: list[Layer]) -> list[Layer]:
+        names = [layer.name for layer in layers]
+        repeated = sorted({name for name in names if names.count(name) > 1})
+        if repeated:
+            raise ValueError(f"layer name {repeated[0]!r} is used twice; name each layer once")
+        carriers = [layer for layer in layers if layer.carrier]
+        if len(carriers) > 1:
+            raise ValueError("more than one layer has 'carrier: true'; mark only the heavy metal")
+        if not carriers and len(layers) > 1:
+            raise ValueError(
+                "no layer is marked 'carrier: true'; mark the layer whose current density "
+                "matters (the heavy metal)"
+            )
+        return layers
+
+    @property
+    def carrier(self) -> Layer:
+        return next((layer for layer in self.layers if layer.carrier), self.layers[0])
+
+
+class LoopBase(Strict):
+    axis: str
+    spacing: Literal["linear", "log"] = "linear"
+    return_: bool = Field(default=False, alias="return", description="sweep there and back")
+    snake: bool = Field(
+        default=False, description="reverse direction on alternate passes of the outer loop"
+    )
+    num: int | None = Field(default=None, description="number of values from start to stop")
+    values: list[float] | None = None
+    start: float | None = None
+    stop: float | None = None
+    step: float | None = None
+
+
+def _loop_model(axis: str, quantity: Any) -> type[LoopBase]:
+    return create_model(  # type: ignore[no-any-return, call-overload]
+        f"{axis.title()}Loop",
+        __base__=LoopBase,
+        axis=(Literal[axis], ...),  # type: ignore[valid-type]
+        values=(list[quantity] | None, None),  # type: ignore[valid-type]
+        start=(quantity | None, None),
+        stop=(quantity | None, None),
+        step=(quantity | None, None),
+    )
+
+
+LOOP_MODELS: tuple[type[LoopBase], ...] = (
+    *(_loop_model(axis.name, axis.quantity_type) for axis in movable_axes()),
+    _loop_model(CURRENT_AXIS, Current),
+)
+Loop = Annotated[Union[LOOP_MODELS], Discriminator("axis")]
+
+Waits: type[BaseModel] = create_model(  # type: ignore[call-overload]
+    "Waits", __base__=Strict,
+    **{axis.name: (axis.wait_model, axis.wait_model()) for axis in movable_axes()},
+)
+
+
+class SampleLimits(Strict):
+    current: Current | None = Field(default=None, gt=0, description="largest current amplitude")
+    current_density: CurrentDensity | None = Field(
+        default=None, gt=0, description="in the carrier layer"
+    )
+    field: FieldQuantity | None = Field(default=None, gt=0, description="largest |mu0*H|")
+    temperature_max: Temperature | None = Field(default=None, gt=0)
+
+
+# YAML 1.1 (PyYAML, the loader) reads a bare `off` as false; the schema admits both spellings.
+FinishCurrent = Annotated[
+    Literal["off"],
+    WithJsonSchema({"enum": ["off", False], "type": ["string", "boolean"]}),
+]
+
+
+class Finish(Strict):
+    current: FinishCurrent = Field(
+        default="off", description="the source always goes to zero, then output off"
+    )
+    field: Literal["zero", "hold"] = "zero"
+    temperature: Literal["hold"] | Temperature = "hold"
+
+    @field_validator("current", mode="before")
+    @classmethod
+    def yaml_off(cls, value: object) -> object:
+        # YAML 1.1 reads a bare `off` as false; the user meant the word.
+        return "off" if value is False else value
+
+
+ProblemAction = Literal["flag", "retry", "skip", "stop"]
+
+
+class OnProblem(Strict):
+    """What the runner does when an instrument reports a problem at a point."""
+
+    compliance: ProblemAction = "retry"
+    instrument_error: ProblemAction = "retry"
+    wait_timeout: ProblemAction = "skip"
+    retries: int = Field(default=2, ge=0, le=10)
+
+
+class ProtocolBase(Strict):
+    """The sections every acquisition mode shares; each mode's model adds its own."""
+
+    name: str = Field(min_length=1)
+    description: str = ""
+    mode: str = Field(default="dc_reversal", description="acquisition mode")
+    sample: Sample
+    rotation_plane: Literal["xy", "zx", "zy"] = "xy"
+    loops: list[Loop] = Field(min_length=1)  # type: ignore[valid-type]
+    waits: Waits = Waits()  # type: ignore[valid-type]
+    limits: SampleLimits
+    finish: Finish = Finish()
+    on_problem: OnProblem = OnProblem()
+    notify: list[str] | None = Field(
+        default=None, description="program and arguments run at finish and on failure"
+    )

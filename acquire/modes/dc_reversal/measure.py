@@ -1,0 +1,90 @@
+"""DC current reversal at one point, on the instruments: the runner-side part of the mode.
+
+At every step of every cycle the source is set to +I, 0 or -I (zero between polarities, never
+output-off: the output relay does not switch at every step, common practice), the current is
+let settle, the readbacks are taken, then every channel is read `per_step` times. Each reading
+becomes a row of readings.csv as it is taken.
+"""
+
+from __future__ import annotations
+
+import numpy as np
+
+from acquire.modes.base import MeasureContext, PointMeasurement, PointProblem
+from acquire.plan.schedule import Point, movable_axis_names
+from acquire.store.append_table import format_cell
+from drivers.roles import current_source, voltmeter
+
+
+class DcReversalMeasurement(PointMeasurement):
+    def __init__(self, context: MeasureContext) -> None:
+        self.context = context
+        protocol = context.protocol
+        self.alternation = protocol.alternation
+        self.per_step = protocol.readings.per_step
+        self.channels = list(protocol.readings.channels)
+        self.polarities = self.alternation.polarities
+        self.source: current_source.CurrentSource = context.instruments.required(
+            current_source.ROLE)
+        self.meters: list[voltmeter.Voltmeter] = [
+            context.instruments.named(name) for name in self.channels
+        ]
+        self.readings = context.tables["readings.csv"]
+        self.tripped = False
+        # Compliance is a live state: ask while current flows, at the first and the last
+        # nonzero step of the point (two transactions, not one per step).
+        nonzero = [index for index, polarity in enumerate(self.polarities) if polarity]
+        self.compliance_probes = {(0, nonzero[0]), (self.alternation.cycles - 1, nonzero[-1])}
+        self.used = context.used_axes
+
+    def start(self) -> None:
+        self.source.set_output(True)
+
+    def rest(self) -> None:
+        self.source.set_current(0.0)
+
+    def measure(self, point: Point, attempt: int, flags: str) -> np.ndarray:
+        alternation, per_step, clock = self.alternation, self.per_step, self.context.clock
+        source, meters = self.source, self.meters
+        voltages = np.empty((len(self.channels), alternation.cycles, len(self.polarities),
+                             per_step))
+        setpoints = ",".join(
+            format_cell(value if axis in self.used else None)
+            for axis, value in zip(movable_axis_names(), point.setpoints)
+        )
+        channels = [format_cell(name) for name in self.channels]
+        flag_cell = format_cell(flags)
+        # Rows are formatted here, in one f-string each: this loop runs for every reading.
+        lines = []
+        self.tripped = False
+        for cycle in range(alternation.cycles):
+            for step_index, polarity in enumerate(self.polarities):
+                current = polarity * point.current_A
+                source.set_current(current)
+                clock.sleep(alternation.settle)
+                readbacks = ",".join(map(format_cell, self.context.readbacks()))
+                self.context.heartbeat()
+                head = f"{point.number},{attempt},{cycle},{step_index},"
+                middle = f"{setpoints},{current!r},{polarity},"
+                for repeat in range(per_step):
+                    for channel_index, meter in enumerate(meters):
+                        voltage = meter.read()
+                        voltages[channel_index, cycle, step_index, repeat] = voltage
+                        lines.append(
+                            f"{head}{repeat},{round(clock.now(), 6)!r},"
+                            f"{clock.utc().isoformat()},{middle}{channels[channel_index]},"
+                            f"{voltage!r},{readbacks},{flag_cell}\n"
+                        )
+                if (cycle, step_index) in self.compliance_probes:
+                    self.tripped = self.tripped or source.compliance_tripped()
+        source.set_current(0.0)
+        self.readings.write_lines(lines)
+        return voltages
+
+    def check(self) -> None:
+        if self.tripped:
+            raise PointProblem("compliance", "the current source hit its compliance voltage")
+        for instrument in (self.source, *self.meters):
+            problems = instrument.errors()
+            if problems:
+                raise PointProblem("instrument_error", f"{instrument.name}: {problems[0]}")

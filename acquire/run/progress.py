@@ -1,0 +1,105 @@
+"""Progress for the person watching: a bar whose ETA learns the real pace, and status.json."""
+
+from __future__ import annotations
+
+import time
+from dataclasses import dataclass, field
+from typing import Any
+
+from tqdm import tqdm
+
+from acquire.modes.base import PointSummary
+from acquire.run.runner import PointOutcome
+from acquire.store.run_folder import RunFolder
+
+HEARTBEAT_S = 10.0
+
+
+@dataclass
+class Progress:
+    folder: RunFolder
+    total_points: int
+    estimated_s: float
+    clock_now: Any  # callable returning run-clock seconds
+    show_bar: bool = True
+    done: int = 0
+    started_clock_s: float = 0.0
+    last_status_wall: float = 0.0
+    last_point: dict[str, Any] = field(default_factory=dict)
+    state: str = "running"
+    min_status_interval_s: float = 0.0  # > 0 on the virtual clock, where points fly by
+    summary: Any = None  # the mode's summary of a reduced point (result -> PointSummary)
+    _bar: Any = None
+    _done_at_start: int = 0
+
+    def start(self, already_done: int) -> None:
+        self.done = already_done
+        self.started_clock_s = self.clock_now()
+        self._done_at_start = already_done
+        if self.show_bar:
+            self._bar = tqdm(total=self.total_points, initial=already_done, unit="pt",
+                             dynamic_ncols=True, leave=True)
+        self.write_status()
+
+    def eta_s(self) -> float:
+        """Start from the estimate; scale by the measured pace once points are done."""
+        remaining = self.total_points - self.done
+        per_point_estimate = self.estimated_s / max(self.total_points, 1)
+        measured_points = self.done - self._done_at_start
+        if measured_points <= 0:
+            return remaining * per_point_estimate
+        pace = (self.clock_now() - self.started_clock_s) / measured_points
+        return remaining * pace
+
+    def point_done(self, outcome: PointOutcome) -> None:
+        self.done = outcome.point.number + 1
+        shown: PointSummary | None = (
+            self.summary(outcome.result) if outcome.result is not None and self.summary
+            else None
+        )
+        if shown is not None:
+            self.last_point = {
+                "point": outcome.point.number,
+                "current_A": outcome.point.current_A,
+                "resistance_ohm": shown.resistance_ohm,
+                "unidirectional_ratio_ppm": shown.unidirectional_ratio * 1e6,
+                "flags": outcome.flags,
+            }
+        if self._bar is not None:
+            self._bar.n = self.done
+            if shown is not None:
+                self._bar.set_postfix_str(
+                    f"R={shown.resistance_ohm:.5g} ohm, "
+                    f"uni={shown.unidirectional_ratio * 1e6:+.2f} ppm, "
+                    f"ETA {format_eta(self.eta_s())}", refresh=False,
+                )
+            self._bar.refresh()
+        if time.monotonic() - self.last_status_wall >= self.min_status_interval_s:
+            self.write_status()
+
+    def heartbeat(self) -> None:
+        if time.monotonic() - self.last_status_wall >= HEARTBEAT_S:
+            self.write_status()
+
+    def write_status(self) -> None:
+        self.last_status_wall = time.monotonic()
+        self.folder.write_status({
+            "state": self.state,
+            "points_done": self.done,
+            "points_total": self.total_points,
+            "eta_s": round(self.eta_s(), 1) if self.state == "running" else 0.0,
+            "run_clock_s": round(self.clock_now(), 3),
+            "last_point": self.last_point,
+        })
+
+    def close(self, state: str) -> None:
+        self.state = state
+        if self._bar is not None:
+            self._bar.close()
+        self.write_status()
+
+
+def format_eta(seconds: float) -> str:
+    minutes, secs = divmod(int(seconds), 60)
+    hours, minutes = divmod(minutes, 60)
+    return f"{hours}:{minutes:02d}:{secs:02d}"

@@ -1,0 +1,184 @@
+"""The output folder of one run: its files, run.json, the status heartbeat and the log."""
+
+from __future__ import annotations
+
+import json
+import logging
+import os
+import platform
+import shutil
+import socket
+import sys
+from collections.abc import Iterator
+from contextlib import contextmanager
+from dataclasses import dataclass
+from datetime import datetime, timezone
+from importlib import metadata
+from pathlib import Path
+from typing import Any
+
+from acquire import __version__
+from acquire.errors import InputError
+from acquire.store.append_table import atomic_write_text
+from acquire.store.file_lock import try_lock, unlock
+from acquire.store.run_record import RunRecord, parse_run_record
+
+LIBRARIES = ("numpy", "pandas", "pint", "pydantic", "pyvisa", "pyvisa-sim", "pyvisa-py", "scipy")
+
+
+def software_versions() -> dict[str, str]:
+    versions = {"flipsweep": __version__, "python": sys.version.split()[0]}
+    for name in LIBRARIES:
+        try:
+            versions[name] = metadata.version(name)
+        except metadata.PackageNotFoundError:
+            versions[name] = "not installed"
+    return versions
+
+
+def utc_now() -> str:
+    return datetime.now(timezone.utc).isoformat(timespec="seconds")
+
+
+@dataclass(frozen=True)
+class RunFolder:
+    path: Path
+
+    @property
+    def readings(self) -> Path:
+        return self.path / "readings.csv"
+
+    @property
+    def points(self) -> Path:
+        return self.path / "points.csv"
+
+    @property
+    def run_json(self) -> Path:
+        return self.path / "run.json"
+
+    @property
+    def status_json(self) -> Path:
+        return self.path / "status.json"
+
+    @property
+    def log(self) -> Path:
+        return self.path / "run.log"
+
+    def prepare_new(self, needed_bytes: int) -> None:
+        """Refuse before any instrument is touched if the folder is unusable."""
+        if self.path.exists() and any(self.path.iterdir()):
+            raise InputError(
+                "the output folder is not empty", file=str(self.path), key=("--out",),
+                fix="give a new folder, or use 'flipsweep resume' to continue a run there",
+            )
+        try:
+            self.path.mkdir(parents=True, exist_ok=True)
+            probe = self.path / ".write-test"
+            probe.write_text("ok", encoding="utf-8")
+            probe.unlink()
+        except OSError as error:
+            raise InputError(
+                f"the output folder cannot be written ({error.strerror})", file=str(self.path),
+                key=("--out",), fix="choose a folder you can write to",
+            ) from None
+        self.check_space(needed_bytes)
+
+    def check_space(self, needed_bytes: int) -> None:
+        free = shutil.disk_usage(self.path).free
+        # Twice the estimate: reduction, fits and figures write beside the readings.
+        if free < 2 * needed_bytes:
+            raise InputError(
+                f"only {free / 1e6:.0f} MB free, the run needs about "
+                f"{2 * needed_bytes / 1e6:.0f} MB",
+                file=str(self.path), key=("--out",), fix="free space or choose another disk",
+            )
+
+    def read_run_json(self) -> RunRecord:
+        try:
+            data = json.loads(self.run_json.read_text(encoding="utf-8"))
+        except FileNotFoundError:
+            raise InputError(
+                "has no run.json, so it is not a flipsweep run folder", file=str(self.path),
+                fix="give the folder a run was started in",
+            ) from None
+        except json.JSONDecodeError as error:
+            raise InputError(
+                f"run.json is damaged ({error.msg})", file=str(self.run_json)
+            ) from None
+        try:
+            return parse_run_record(data)
+        except ValueError as error:
+            raise InputError(f"run.json is not a run record: {error}",
+                             file=str(self.run_json)) from None
+
+    def write_run_json(self, record: RunRecord) -> None:
+        atomic_write_text(self.run_json, json.dumps(record.to_json(), indent=2) + "\n")
+
+    def write_status(self, status: dict[str, Any]) -> None:
+        status = {**status, "updated_utc": utc_now(), "pid": os.getpid(),
+                  "host": socket.gethostname()}
+        # A heartbeat needs atomicity, not durability: after a power cut it is stale anyway.
+        atomic_write_text(self.status_json, json.dumps(status, indent=2) + "\n", durable=False)
+
+    @property
+    def lock_file(self) -> Path:
+        return self.path / "run.lock"
+
+    @contextmanager
+    def locked(self) -> Iterator[None]:
+        """Hold the folder for one process: a second `resume` while the run still goes would
+        drive the same instruments twice and interleave the files. The kernel drops the lock
+        when the process ends, however it ends (kill -9 included)."""
+        handle = open(self.lock_file, "a+", encoding="utf-8")  # noqa: SIM115 - held open
+        if not try_lock(handle):
+            handle.seek(0)
+            holder = handle.read().strip() or "another process"
+            handle.close()
+            raise InputError(
+                f"a run is still going in this folder (pid {holder})", file=str(self.path),
+                fix="let it finish, or stop it first (Ctrl-C in its terminal, or kill that pid)",
+            ) from None
+        try:
+            handle.seek(0)
+            handle.truncate()
+            handle.write(str(os.getpid()))
+            handle.flush()
+            yield
+        finally:
+            unlock(handle)
+            handle.close()
+
+    def is_running(self) -> bool:
+        """True when a live process holds the folder's lock (on this machine)."""
+        if not self.lock_file.exists():
+            return False
+        with open(self.lock_file, encoding="utf-8") as handle:
+            if not try_lock(handle):
+                return True
+            unlock(handle)
+            return False
+
+    def read_status(self) -> dict[str, Any] | None:
+        try:
+            return json.loads(self.status_json.read_text(encoding="utf-8"))
+        except (FileNotFoundError, json.JSONDecodeError):
+            return None
+
+
+def host_description() -> dict[str, str]:
+    return {"host": socket.gethostname(), "platform": platform.platform(),
+            "user": os.environ.get("USER", "")}
+
+
+def attach_log(folder: RunFolder) -> logging.Handler:
+    handler = logging.FileHandler(folder.log, encoding="utf-8")
+    handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
+    logger = logging.getLogger("flipsweep")
+    logger.setLevel(logging.INFO)
+    logger.addHandler(handler)
+    return handler
+
+
+def detach_log(handler: logging.Handler) -> None:
+    logging.getLogger("flipsweep").removeHandler(handler)
+    handler.close()

@@ -1,0 +1,26 @@
+"""Simulated behaviour by role: every module here defines `build(world, name, spec)`, named
+after the role it simulates (drivers/roles/<role>.py), returning a SimulatedInstrument."""
+
+from __future__ import annotations
+
+import importlib
+from collections.abc import Callable
+from functools import cache
+from typing import Any
+
+
+@cache
+def simulated_role(role: str) -> Callable[[Any, str, Any], Any]:
+    try:
+        module = importlib.import_module(f"{__name__}.{role}")
+    except ModuleNotFoundError:
+        raise ValueError(f"no simulated behaviour for the role {role!r} "
+                         f"(sim_instruments/roles/{role}.py)") from None
+    return module.build  # type: ignore[no-any-return]
+
+
+@cache
+def static_replies(role: str) -> dict[str, object]:
+    """What a role's static pyvisa-sim definitions answer before anything is set (SI)."""
+    module = importlib.import_module(f"{__name__}.{role}")
+    return dict(getattr(module, "STATIC_REPLIES", {}))
