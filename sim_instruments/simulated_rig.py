@@ -17,6 +17,7 @@ import pyvisa
 from drivers.rig import Rig
 from sim_instruments.live import couple
 from sim_instruments.pyvisa_sim_definitions import write_rig_definitions
+from sim_instruments.roles import build_world
 from sim_instruments.world import Clock, Sample, SimulatedWorld
 
 
@@ -57,6 +58,6 @@ def open_simulated_rig(
     finally:
         if definitions_dir is None:
             shutil.rmtree(folder, ignore_errors=True)
-    world = SimulatedWorld(clock, sample, rig)
+    world = build_world(clock, sample, rig)
     couple(manager, world, rig)
     return SimulatedRig(manager, world, path if definitions_dir is not None else None)

@@ -89,8 +89,7 @@ class Extremes:
 
 class SimulatedWorld:
     def __init__(self, clock: Clock, sample: Sample, rig: Any) -> None:
-        from sim_instruments.roles import simulated_role  # the roles build on this module
-
+        """The world without instruments; sim_instruments.roles.build_world adds the rig's."""
         self.clock = clock
         self.sample = sample
         self.mains_frequency_Hz = float(rig.mains_frequency)
@@ -104,8 +103,6 @@ class SimulatedWorld:
         self._providers: dict[str, Callable[[], float]] = {}
         self._applied: tuple[float, float] | None = None
         self.instruments: dict[str, SimulatedInstrument] = {}
-        for name, spec in rig.instruments.items():
-            self.instruments[name] = simulated_role(spec.role)(self, name, spec)
 
     # -- the shared physical state ------------------------------------------------------
     def provide(self, quantity: str, read: Callable[[], float]) -> None:

@@ -508,7 +508,7 @@ def test_the_record_sees_an_excess_when_one_is_sent() -> None:
     """The property above can fail: a world told more than a limit reports it."""
     from acquire.run.clock import VirtualClock
     from drivers.rig import Rig
-    from sim_instruments.world import SimulatedWorld
+    from sim_instruments.roles import build_world
 
     class Flat:
         def apply_field(self, field_T: float, angle_deg: float) -> None: ...
@@ -521,7 +521,7 @@ def test_the_record_sees_an_excess_when_one_is_sent() -> None:
         "magnet": {"role": "field", "resource": "GPIB0::2::INSTR"},
         "stage": {"role": "rotator", "resource": "GPIB0::3::INSTR"},
         "cryo": {"role": "temperature", "resource": "GPIB0::4::INSTR"}}})
-    world = SimulatedWorld(VirtualClock(), Flat(), rig)  # type: ignore[arg-type]
+    world = build_world(VirtualClock(), Flat(), rig)
     source, magnet, stage, cryo = (world.instruments[name]
                                    for name in ("source", "magnet", "stage", "cryo"))
     for amperes in (1e-3, -3e-3, 2e-3):

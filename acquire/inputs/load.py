@@ -10,6 +10,7 @@ from acquire.errors import InputError
 from acquire.inputs import loops as loop_values
 from acquire.inputs.protocol import CURRENT_AXIS
 from acquire.inputs.pydantic_errors import did_you_mean, validate
+from acquire.inputs.simulated_sample import simulated_sample
 from acquire.inputs.yaml_source import LoadedDocument, SourceMap, load_document
 from acquire.modes import DEFAULT_MODE, mode_named, mode_names
 from acquire.modes.base import AcquisitionMode
@@ -196,9 +197,7 @@ def check_pair(protocol: LoadedProtocol, rig: LoadedRig) -> None:
             )
     if rig.rig.simulation:
         # Settings for simulated runs: a typo there should fail now, not at the rehearsal.
-        from acquire.run.simulation import sample_for
-
-        sample_for(protocol, rig, seed=None)
+        simulated_sample(protocol.protocol, dict(rig.rig.simulation), rig.document.source, None)
     finish = protocol.protocol.finish
     for axis in movable:
         target = getattr(finish, axis, None)

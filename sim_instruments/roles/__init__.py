@@ -8,6 +8,16 @@ from collections.abc import Callable
 from functools import cache
 from typing import Any
 
+from sim_instruments.world import Clock, Sample, SimulatedWorld
+
+
+def build_world(clock: Clock, sample: Sample, rig: Any) -> SimulatedWorld:
+    """A world with one simulated instrument per rig entry, built by its role's module."""
+    world = SimulatedWorld(clock, sample, rig)
+    for name, spec in rig.instruments.items():
+        world.instruments[name] = simulated_role(spec.role)(world, name, spec)
+    return world
+
 
 @cache
 def simulated_role(role: str) -> Callable[[Any, str, Any], Any]:
