@@ -13,7 +13,7 @@ import time
 import tracemalloc
 from pathlib import Path
 
-from acquire.run.session import RunOptions, start_run
+from acquire.runtime.session import RunOptions, start_run
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"

@@ -18,8 +18,8 @@ from pathlib import Path
 import pyvisa.resources
 
 from acquire.inputs.load import load_protocol, load_rig
-from acquire.run.clock import VirtualClock
-from acquire.run.session import RunOptions, start_run
+from acquire.runtime.clock import VirtualClock
+from acquire.runtime.session import RunOptions, start_run
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
@@ -55,7 +55,7 @@ def record(protocol: Path) -> list[tuple[str, str, str]]:
 
 
 def bare_loop(protocol: Path, calls: list[tuple[str, str, str]]) -> float:
-    from acquire.run.simulation import sample_for
+    from acquire.runtime.simulation import sample_for
     from sim_instruments.simulated_rig import open_simulated_rig
 
     loaded, rig = load_protocol(protocol), load_rig(RIG)

@@ -1,4 +1,8 @@
-"""Pydantic types for quantities with units: SI floats inside, text with a unit in the schema."""
+"""Pydantic types for quantities with units: SI floats inside, text with a unit in the schema.
+
+Each type is `Annotated[float, <parse with its dimension>, <its JSON schema>]`, so type
+checkers see a float and pydantic parses the text ("20 mT") into SI.
+"""
 
 from __future__ import annotations
 
@@ -9,34 +13,39 @@ from pydantic import BeforeValidator, WithJsonSchema
 from drivers import units
 
 
-def quantity_type(dimension: units.Dimension) -> object:
+def parsed_as(dimension: units.Dimension) -> BeforeValidator:
     def parse(value: object) -> float:
         try:
             return units.to_si(value, dimension)
         except units.UnitError as error:
             raise ValueError(str(error)) from None
 
-    schema = {
+    return BeforeValidator(parse)
+
+
+def schema_of(dimension: units.Dimension) -> WithJsonSchema:
+    return WithJsonSchema({
         "type": "string",
-        "description": (
-            f"{units.article(dimension.name)} with its unit, e.g. '{dimension.example}'"
-        ),
+        "description": f"{units.article(dimension.name)} with its unit, e.g. "
+                       f"'{dimension.example}'",
         "examples": [dimension.example],
-    }
-    return Annotated[float, BeforeValidator(parse), WithJsonSchema(schema)]
+    })
 
 
-Current = quantity_type(units.CURRENT)
-Field = quantity_type(units.FIELD)
-Angle = quantity_type(units.ANGLE)
-Temperature = quantity_type(units.TEMPERATURE)
-Duration = quantity_type(units.TIME)
-Length = quantity_type(units.LENGTH)
-Resistivity = quantity_type(units.RESISTIVITY)
-Resistance = quantity_type(units.RESISTANCE)
-CurrentDensity = quantity_type(units.CURRENT_DENSITY)
-Voltage = quantity_type(units.VOLTAGE)
-FieldRate = quantity_type(units.FIELD_RATE)
-AngleRate = quantity_type(units.ANGLE_RATE)
-TemperatureRate = quantity_type(units.TEMPERATURE_RATE)
-Frequency = quantity_type(units.FREQUENCY)
+Current = Annotated[float, parsed_as(units.CURRENT), schema_of(units.CURRENT)]
+Field = Annotated[float, parsed_as(units.FIELD), schema_of(units.FIELD)]
+Angle = Annotated[float, parsed_as(units.ANGLE), schema_of(units.ANGLE)]
+Temperature = Annotated[float, parsed_as(units.TEMPERATURE), schema_of(units.TEMPERATURE)]
+Duration = Annotated[float, parsed_as(units.TIME), schema_of(units.TIME)]
+Length = Annotated[float, parsed_as(units.LENGTH), schema_of(units.LENGTH)]
+Resistivity = Annotated[float, parsed_as(units.RESISTIVITY), schema_of(units.RESISTIVITY)]
+Resistance = Annotated[float, parsed_as(units.RESISTANCE), schema_of(units.RESISTANCE)]
+CurrentDensity = Annotated[float, parsed_as(units.CURRENT_DENSITY),
+                           schema_of(units.CURRENT_DENSITY)]
+Voltage = Annotated[float, parsed_as(units.VOLTAGE), schema_of(units.VOLTAGE)]
+FieldRate = Annotated[float, parsed_as(units.FIELD_RATE), schema_of(units.FIELD_RATE)]
+AngleRate = Annotated[float, parsed_as(units.ANGLE_RATE), schema_of(units.ANGLE_RATE)]
+TemperatureRate = Annotated[float, parsed_as(units.TEMPERATURE_RATE),
+                            schema_of(units.TEMPERATURE_RATE)]
+Frequency = Annotated[float, parsed_as(units.FREQUENCY), schema_of(units.FREQUENCY)]
+Power = Annotated[float, parsed_as(units.POWER), schema_of(units.POWER)]

@@ -24,7 +24,8 @@ class ReplyFormatError(ValueError):
 
 
 class ReplyParser(Protocol):
-    spec: str
+    @property
+    def spec(self) -> str: ...
 
     def parse(self, reply: str) -> float | bool | str | tuple[int, str]: ...
 

@@ -2,7 +2,7 @@
 
 from __future__ import annotations
 
-from typing import Any
+from typing import TYPE_CHECKING, Any
 
 from pydantic import Field
 
@@ -11,14 +11,17 @@ from drivers.roles import instrument_entry_type
 from drivers.roles.base import Role
 from drivers.spec import InstrumentSpec, Strict
 
-InstrumentEntry = instrument_entry_type()
+if TYPE_CHECKING:  # what every role's entry shares; pydantic sees the union by `role:`
+    InstrumentEntry = InstrumentSpec
+else:
+    InstrumentEntry = instrument_entry_type()
 
 
 class Rig(Strict):
     name: str = Field(min_length=1)
     visa_library: str = Field(default="@py", description="'@py', '@sim' or 'file.yaml@sim'")
     mains_frequency: Frequency = Field(default=50.0, gt=0, description="of the lab's mains")
-    instruments: dict[str, InstrumentEntry] = Field(min_length=1)  # type: ignore[valid-type]
+    instruments: dict[str, InstrumentEntry] = Field(min_length=1)
     simulation: dict[str, float | int | str] = Field(
         default_factory=dict, description="sample-model parameters for simulated runs"
     )

@@ -13,7 +13,7 @@ from functools import lru_cache
 
 import pint
 
-UNIT_REGISTRY = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
+UNIT_REGISTRY: pint.UnitRegistry = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
 UNIT_REGISTRY.define("ppm = 1e-6 = _ppm_")
 
 

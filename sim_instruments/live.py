@@ -16,8 +16,10 @@ import pyvisa
 from pyvisa.rname import to_canonical_name
 from pyvisa_sim.component import NoResponse, Property
 
+from drivers.command_limits import CommandLimits, past
 from drivers.dialect import ERROR_QUERY, VALUE_FIELDS, Dialect, dialect_for
 from drivers.rig import Rig
+from drivers.roles import role_named
 from sim_instruments.reply_text import ReplyWriter, reply_writer
 from sim_instruments.world import SimulatedWorld
 
@@ -72,7 +74,8 @@ class ErrorQueue:
 
 
 def _value_command(
-    apply: Callable[[float], object], scale: float, errors: ErrorQueue
+    apply: Callable[[float], object], scale: float, errors: ErrorQueue,
+    refuse: Callable[[float], bool],
 ) -> Callable[[Any], None]:
     def set_from_text(text: Any) -> None:
         try:
@@ -80,12 +83,32 @@ def _value_command(
         except (TypeError, ValueError):
             errors.push(DATA_TYPE_ERROR)
             return
+        if refuse(value):
+            errors.push(DATA_OUT_OF_RANGE)
+            return
         try:
             apply(value)
         except ValueError:
             errors.push(DATA_OUT_OF_RANGE)
 
     return set_from_text
+
+
+def _refusal(world: SimulatedWorld, name: str, template: str, limits: CommandLimits
+             ) -> Callable[[float], bool]:
+    """Like a real instrument's own protection: a value past the rig's hardware limit for
+    this template is not carried out (SCPI -222), and the world records that it was sent."""
+    bound = limits.get(template)
+    if bound is None:
+        return lambda value: False
+
+    def refuse(value: float) -> bool:
+        if past(value, bound.low, bound.high, bound.limit.symmetric):
+            world.extremes.refused.append((name, template, value))
+            return True
+        return False
+
+    return refuse
 
 
 def _common_bindings(world: SimulatedWorld, name: str, errors: ErrorQueue) -> dict[str, Binding]:
@@ -97,14 +120,18 @@ def _common_bindings(world: SimulatedWorld, name: str, errors: ErrorQueue) -> di
 
 
 def _live_property(
-    template: str, binding: Binding, dialect: Dialect, errors: ErrorQueue
+    template: str, binding: Binding, dialect: Dialect, errors: ErrorQueue,
+    refuse: Callable[[float], bool],
 ) -> Property[str]:
     if dialect.is_query(template):
         return LiveQuery(template, binding, reply_writer(dialect.reply_specs[template]))
     field = dialect.value_fields[template]
     if field is None:
-        return LiveCommand(template, lambda _parsed: binding())
-    return LiveCommand(template, _value_command(binding, VALUE_FIELDS[field], errors))
+        def act(_parsed: Any) -> None:
+            binding()
+
+        return LiveCommand(template, act)
+    return LiveCommand(template, _value_command(binding, VALUE_FIELDS[field], errors, refuse))
 
 
 def _commands_never_reply(device: Any) -> None:
@@ -130,9 +157,11 @@ def couple(resource_manager: pyvisa.ResourceManager, world: SimulatedWorld, rig:
         device = devices[to_canonical_name(spec.resource)]
         dialect = dialect_for(name, spec)
         errors = ErrorQueue(device, dialect)
+        limits = CommandLimits(role_named(spec.role).template_limits, spec)
         bindings = {**world.instruments[name].bindings(),
                     **_common_bindings(world, name, errors)}
         for template, binding in bindings.items():
             if template in device._properties:
-                device._properties[template] = _live_property(template, binding, dialect, errors)
+                device._properties[template] = _live_property(
+                    template, binding, dialect, errors, _refusal(world, name, template, limits))
         _commands_never_reply(device)

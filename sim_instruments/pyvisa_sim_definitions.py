@@ -14,6 +14,7 @@ Regenerate sim_instruments/generic.yaml (the built-in simulated rig) with
 
 from __future__ import annotations
 
+import math
 import string
 from pathlib import Path
 from typing import Any
@@ -21,10 +22,12 @@ from typing import Any
 import yaml
 from pyvisa import rname
 
-from drivers.dialect import ERROR_QUERY, Dialect, dialect_for
+from drivers.command_limits import CommandLimits
+from drivers.dialect import ERROR_QUERY, VALUE_FIELDS, Dialect, dialect_for
 from drivers.errors import InputError
 from drivers.replies import FlagReply
 from drivers.rig import Rig
+from drivers.roles import role_named
 from drivers.spec import InstrumentSpec
 from sim_instruments.reply_text import reply_writer
 from sim_instruments.roles import static_replies
@@ -118,8 +121,15 @@ def device_definition(instrument: str, spec: InstrumentSpec, dialect: Dialect) -
             "getter": {"q": dialect.commands[name], "r": "{}"},
         }
     commands = [n for n in supported if not dialect.is_query(n)]
+    limits = CommandLimits(role_named(spec.role).template_limits, spec)
     for name in _ordered_setters(dialect, commands):
         properties[name] = {"default": "", "setter": {"q": setter_pattern(dialect.commands[name])}}
+        bounds = _range_specs(dialect, limits, name)
+        if bounds:
+            # The instrument's own protection: a value past the rig's limit is refused.
+            # pyvisa-sim checks the default too: zero, or the nearest value inside the range
+            inside = min(max(0.0, bounds.get("min", -math.inf)), bounds.get("max", math.inf))
+            properties[name].update(default=repr(inside), specs={"type": "float", **bounds})
     _check_distinct(instrument, dialect, supported)
     device: dict[str, Any] = {"eom": _eom(spec)}
     handling = _error_handling(dialect)
@@ -128,6 +138,23 @@ def device_definition(instrument: str, spec: InstrumentSpec, dialect: Dialect) -
     device["dialogues"] = dialogues
     device["properties"] = properties
     return device
+
+
+def _range_specs(dialect: Dialect, limits: CommandLimits, name: str) -> dict[str, float]:
+    """pyvisa-sim min/max of a setter, in the units its command text carries."""
+    bound = limits.get(name)
+    field = dialect.value_fields.get(name)
+    if bound is None or field is None:
+        return {}
+    scale = VALUE_FIELDS[field]
+    found: dict[str, float] = {}
+    if bound.high is not None:
+        found["max"] = bound.high * scale
+        if bound.limit.symmetric:
+            found["min"] = -bound.high * scale
+    if bound.low is not None:
+        found["min"] = bound.low * scale
+    return found
 
 
 def _check_distinct(instrument: str, dialect: Dialect, names: list[str]) -> None:

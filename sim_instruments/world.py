@@ -75,6 +75,8 @@ class Extremes:
 
     largest: dict[str, float] = field(default_factory=dict)
     span: dict[str, tuple[float, float]] = field(default_factory=dict)
+    # (instrument, template, value) of every command refused for a hardware limit
+    refused: list[tuple[str, str, float]] = field(default_factory=list)
 
     def magnitude(self, name: str, value: float) -> None:
         if not math.isnan(value):

@@ -66,7 +66,7 @@ GRAPH = {name: imported(path) for name, path in MODULES.items()}
 def test_the_graph_sees_imports_inside_functions() -> None:
     # acquire.inputs.load imports the mode registry; the CLI imports its commands lazily.
     assert "acquire.modes" in GRAPH["acquire.inputs.load"]
-    assert "acquire.run.session" in GRAPH["acquire.cli.run_commands"]
+    assert "acquire.runtime.session" in GRAPH["acquire.cli.run_commands"]
 
 
 @pytest.mark.parametrize("name", sorted(MODULES))

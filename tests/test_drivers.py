@@ -6,8 +6,8 @@ import math
 
 import pytest
 
-from acquire.run.clock import VirtualClock
-from acquire.run.visa_library import resource_manager_for
+from acquire.runtime.clock import VirtualClock
+from acquire.runtime.visa_library import resource_manager_for
 from drivers.errors import CommunicationError, InstrumentError
 from drivers.factory import open_instruments
 from sim_instruments.sample_model import BilayerSample, SampleParameters

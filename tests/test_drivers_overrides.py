@@ -8,7 +8,7 @@ from pathlib import Path
 import pytest
 
 from acquire.inputs.load import load_rig
-from acquire.run.clock import VirtualClock
+from acquire.runtime.clock import VirtualClock
 from drivers.errors import InstrumentError
 from drivers.rig import Rig
 from tests.test_drivers_support import OhmicSample, simulated

@@ -8,7 +8,7 @@ from contextlib import contextmanager
 from dataclasses import dataclass, field
 from typing import Any
 
-from acquire.run.clock import VirtualClock
+from acquire.runtime.clock import VirtualClock
 from drivers.factory import open_instruments
 from drivers.rig import Rig
 from sim_instruments.simulated_rig import SimulatedRig, open_simulated_rig

@@ -18,10 +18,10 @@ import pandas as pd
 import pytest
 
 from acquire.inputs.load import load_protocol, load_rig
-from acquire.run.clock import RealClock
-from acquire.run.instruments import Instruments
-from acquire.run.runner import Runner
-from acquire.run.serve import served_rig
+from acquire.runtime.clock import RealClock
+from acquire.runtime.instruments import Instruments
+from acquire.runtime.runner import Runner
+from acquire.runtime.serve import served_rig
 from acquire.store.append_table import AppendTable
 from drivers.errors import CommunicationError, InstrumentError
 from drivers.replies import FlagReply, ScpiErrorReply

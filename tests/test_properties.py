@@ -434,6 +434,7 @@ def assert_within_limits(world: Any, case: Case, text_rounding: bool = True) -> 
     field_rel = FIELD_TEXT_REL if text_rounding else REL
     angle_abs = ANGLE_TEXT_DEG if text_rounding else 1e-9
     largest, span = world.extremes.largest, world.extremes.span
+    assert not world.extremes.refused, f"an instrument refused {world.extremes.refused}"
     if (current := largest.get("current_A")) is not None:
         assert current <= case.current_max_A * (1 + REL), (
             f"source asked for {current!r} A, limit {case.current_max_A!r} A")
@@ -506,7 +507,7 @@ def test_a_valid_protocol_never_takes_an_instrument_past_a_limit_wide(case: Case
 
 def test_the_record_sees_an_excess_when_one_is_sent() -> None:
     """The property above can fail: a world told more than a limit reports it."""
-    from acquire.run.clock import VirtualClock
+    from acquire.runtime.clock import VirtualClock
     from drivers.rig import Rig
     from sim_instruments.roles import build_world
 

@@ -9,7 +9,7 @@ import yaml
 
 from acquire.errors import InputError
 from acquire.inputs.load import load_rig
-from acquire.run.visa_library import resource_manager_for
+from acquire.runtime.visa_library import resource_manager_for
 from drivers.replies import reply_parser
 from sim_instruments.pyvisa_sim_definitions import (
     GENERIC_DEFINITIONS,

@@ -24,8 +24,8 @@ import yaml
 
 from acquire.errors import InputError
 from acquire.inputs.load import load_protocol, load_rig
-from acquire.run.serve import served_rig
-from acquire.run.simulation import sample_for
+from acquire.runtime.serve import served_rig
+from acquire.runtime.simulation import sample_for
 from sim_instruments.faults import FaultPlan
 from sim_instruments.socket_server import SocketRig
 from tests.conftest import run_cli

@@ -99,7 +99,7 @@ def current_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
     significance = (slopes["value"] / slopes["error"]).abs()
     chosen = slopes.loc[significance.sort_values(ascending=False).index[:MAX_SERIES]]
     chosen = chosen.sort_values(list(CURRENT_GROUP_KEYS))
-    from_amplitudes = chosen["angle_deg"].isna().all() and points["angle_deg"].notna().any()
+    from_amplitudes = bool(chosen["angle_deg"].isna().all() and points["angle_deg"].notna().any())
     figure, axes = new_figure(1, 1, width=6.4, height=4.2)
     axis = axes[0, 0]
     largest_x = 0.0
@@ -177,7 +177,7 @@ def field_figure(points: pd.DataFrame, fits: pd.DataFrame) -> Any:
     if pd.notna(largest):
         groups = groups[np.isclose(groups["current_A"].to_numpy(float), largest)]
     chosen = pick_series(groups.sort_values(list(FIELD_GROUP_KEYS)))
-    from_amplitudes = chosen["angle_deg"].isna().all() and points["angle_deg"].notna().any()
+    from_amplitudes = bool(chosen["angle_deg"].isna().all() and points["angle_deg"].notna().any())
     series = [_field_series(points, fits, row, from_amplitudes) for _, row in chosen.iterrows()]
     factor, unit = ohm_scale(np.concatenate([values for _, values, _ in series]))
     figure, axes = new_figure(1, 1, width=6.4, height=4.2)

@@ -122,14 +122,14 @@ def fit_linear_by_group(
     y = y[usable]
     s = sigma[usable]
 
-    n_points = np.bincount(g, minlength=n_groups)[:n_groups].astype(np.int64)
+    n_points: NDArray[np.int64] = np.bincount(g, minlength=n_groups)[:n_groups].astype(np.int64)
     has_sigma = np.isfinite(s) & (s > 0)
     n_with_sigma = np.bincount(g, weights=has_sigma.astype(float), minlength=n_groups)
     weighted = (n_points > 0) & (n_with_sigma[:n_groups] == n_points)
     safe_sigma = np.where(has_sigma, s, 1.0)
     if pool_errors:
-        mean_variance = np.bincount(g, weights=safe_sigma**2, minlength=n_groups)
-        mean_variance = mean_variance[:n_groups] / np.maximum(n_points, 1)
+        total_variance = np.bincount(g, weights=safe_sigma**2, minlength=n_groups)
+        mean_variance = total_variance[:n_groups] / np.maximum(n_points, 1)
         safe_sigma = np.sqrt(mean_variance[g])
     weight = np.where(weighted[g], 1.0 / safe_sigma**2, 1.0)
 
@@ -171,7 +171,8 @@ def fit_linear_by_group(
     coefficients[~solvable] = np.nan
     covariance[~solvable] = np.nan
     reduced_chi2[~solvable] = np.nan
-    return GroupedLinearFit(coefficients, covariance, reduced_chi2, n_points, weighted)
+    return GroupedLinearFit(coefficients.astype(np.float64), covariance.astype(np.float64),
+                            reduced_chi2, n_points, weighted)
 
 
 def fit_linear(design: ArrayLike, values: ArrayLike, errors: ArrayLike | None = None) -> LinearFit:

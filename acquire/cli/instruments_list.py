@@ -7,7 +7,7 @@ from pathlib import Path
 
 
 def list_instruments(rig_path: Path | None) -> int:
-    from acquire.run.visa_library import resource_manager_for
+    from acquire.runtime.visa_library import resource_manager_for
 
     if rig_path is None:
         manager = resource_manager_for("@py")

@@ -8,9 +8,9 @@ import sys
 from collections.abc import Callable, Sequence
 from pathlib import Path
 
-from acquire import __version__
 from acquire.errors import InputError, RunFailure
-from acquire.run.cautions import CAUTION
+from acquire.runtime.cautions import CAUTION
+from acquire.version import __version__
 
 EXIT_DONE, EXIT_FAILURE, EXIT_INVALID, EXIT_INTERRUPTED = 0, 1, 2, 130
 

@@ -9,7 +9,7 @@ from pathlib import Path
 
 
 def cmd_run(args: argparse.Namespace) -> int:
-    from acquire.run.session import RunOptions, start_run
+    from acquire.runtime.session import RunOptions, start_run
 
     options = RunOptions(simulate=args.simulate, seed=args.seed, realtime=args.realtime,
                          progress=not args.quiet)
@@ -17,7 +17,7 @@ def cmd_run(args: argparse.Namespace) -> int:
 
 
 def cmd_resume(args: argparse.Namespace) -> int:
-    from acquire.run.resume import resume_run
+    from acquire.runtime.resume import resume_run
 
     return resume_run(Path(args.dir), progress=not args.quiet)
 
@@ -103,7 +103,10 @@ def _run_args(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
     run.add_argument("--quiet", action="store_true", help="no progress bar")
 
 
-def _dir_command(name: str, text: str) -> Callable[[Callable], None]:
+AddCommand = Callable[[str, str], argparse.ArgumentParser]
+
+
+def _dir_command(name: str, text: str) -> Callable[[AddCommand], None]:
     def add_arguments(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
         command = add(name, text)
         command.add_argument("dir")
@@ -125,7 +128,7 @@ def _instruments_args(add: Callable[[str, str], argparse.ArgumentParser]) -> Non
     command.add_argument("--rig")
 
 
-ARGUMENTS = {
+ARGUMENTS: dict[str, Callable[[AddCommand], None]] = {
     "run": _run_args,
     "resume": _dir_command("resume", "continue an interrupted run in place"),
     "status": _dir_command("status", "progress, ETA, last reduced point, state"),

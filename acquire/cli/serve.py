@@ -20,7 +20,7 @@ from contextlib import AbstractContextManager
 from pathlib import Path
 
 from acquire.errors import InputError
-from acquire.run.stop_signals import on_stop_signals
+from acquire.runtime.stop_signals import on_stop_signals
 from sim_instruments.faults import FaultPlan, parse_stall
 
 DEFAULT_PORT_BASE = 5025  # the port commonly used for raw SCPI over TCP (common practice)
@@ -56,7 +56,7 @@ def _show_faults(logger_name: str) -> None:
 
 
 def cmd_serve(args: argparse.Namespace) -> int:
-    from acquire.run.serve import served_rig
+    from acquire.runtime.serve import served_rig
     from sim_instruments import socket_server
 
     plan = fault_plan_from(args)
@@ -109,4 +109,5 @@ def add_serve_arguments(add: Callable[[str, str], argparse.ArgumentParser]) -> N
 
 
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {"serve": cmd_serve}
-ARGUMENTS = {"serve": add_serve_arguments}
+ARGUMENTS: dict[str, Callable[[Callable[[str, str], argparse.ArgumentParser]], None]] = {
+    "serve": add_serve_arguments}

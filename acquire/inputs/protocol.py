@@ -7,7 +7,7 @@ so a new role's axis needs no change here.
 
 from __future__ import annotations
 
-from typing import Annotated, Any, Literal, Union
+from typing import TYPE_CHECKING, Annotated, Any, Literal, Union
 
 from pydantic import (
     BaseModel,
@@ -101,27 +101,34 @@ class LoopBase(Strict):
 
 
 def _loop_model(axis: str, quantity: Any) -> type[LoopBase]:
-    return create_model(  # type: ignore[no-any-return, call-overload]
-        f"{axis.title()}Loop",
-        __base__=LoopBase,
-        axis=(Literal[axis], ...),  # type: ignore[valid-type]
-        values=(list[quantity] | None, None),  # type: ignore[valid-type]
-        start=(quantity | None, None),
-        stop=(quantity | None, None),
-        step=(quantity | None, None),
+    """A loop of one axis: its values parsed with the axis's unit."""
+    tag: Any = Literal[axis]  # a literal of a runtime string: what the discriminator reads
+    values: Any = list[quantity] | None
+    bound: Any = quantity | None
+    return create_model(
+        f"{axis.title()}Loop", __base__=LoopBase, axis=(tag, ...), values=(values, None),
+        start=(bound, None), stop=(bound, None), step=(bound, None),
     )
+
+
+def _waits_model() -> type[BaseModel]:
+    """`waits:`, one section per axis a role moves, each the role's own wait model."""
+    sections: dict[str, Any] = {
+        axis.name: (axis.wait_model, axis.wait_model()) for axis in movable_axes()
+    }
+    return create_model("Waits", __base__=Strict, **sections)
 
 
 LOOP_MODELS: tuple[type[LoopBase], ...] = (
     *(_loop_model(axis.name, axis.quantity_type) for axis in movable_axes()),
     _loop_model(CURRENT_AXIS, Current),
 )
-Loop = Annotated[Union[LOOP_MODELS], Discriminator("axis")]
-
-Waits: type[BaseModel] = create_model(  # type: ignore[call-overload]
-    "Waits", __base__=Strict,
-    **{axis.name: (axis.wait_model, axis.wait_model()) for axis in movable_axes()},
-)
+if TYPE_CHECKING:  # what every loop shares; pydantic sees the union by `axis:`
+    Loop = LoopBase
+    Waits = Any
+else:
+    Loop = Annotated[Union[LOOP_MODELS], Discriminator("axis")]
+    Waits = _waits_model()
 
 
 class SampleLimits(Strict):
@@ -174,8 +181,8 @@ class ProtocolBase(Strict):
     mode: str = Field(default="dc_reversal", description="acquisition mode")
     sample: Sample
     rotation_plane: Literal["xy", "zx", "zy"] = "xy"
-    loops: list[Loop] = Field(min_length=1)  # type: ignore[valid-type]
-    waits: Waits = Waits()  # type: ignore[valid-type]
+    loops: list[Loop] = Field(min_length=1)
+    waits: Waits = Waits()
     limits: SampleLimits
     finish: Finish = Finish()
     on_problem: OnProblem = OnProblem()

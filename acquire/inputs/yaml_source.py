@@ -54,12 +54,14 @@ def _walk(node: yaml.Node, path: KeyPath, file: str, locations: dict) -> None:
                     fix="keep one of them",
                 )
             seen[key] = line
-            locations[(*path, key)] = (file, line)
-            _walk(value_node, (*path, key), file, locations)
+            here: KeyPath = (*path, key)
+            locations[here] = (file, line)
+            _walk(value_node, here, file, locations)
     elif isinstance(node, yaml.SequenceNode):
         for index, item in enumerate(node.value):
-            locations[(*path, index)] = (file, item.start_mark.line + 1)
-            _walk(item, (*path, index), file, locations)
+            at: KeyPath = (*path, index)
+            locations[at] = (file, item.start_mark.line + 1)
+            _walk(item, at, file, locations)
 
 
 def _key_path_near(text: str, line: int) -> KeyPath:
@@ -73,7 +75,8 @@ def _key_path_near(text: str, line: int) -> KeyPath:
         try:
             node = yaml.compose("\n".join(rows[:end]), Loader=yaml.SafeLoader)
             locations: dict[KeyPath, tuple[str, int]] = {}
-            _walk(node, (), "", locations)
+            if node is not None:
+                _walk(node, (), "", locations)
         except (yaml.YAMLError, InputError):
             continue
         written = [(row, -len(path), path) for path, (_, row) in locations.items() if row <= line]
@@ -96,13 +99,13 @@ def parse_yaml_text(text: str, file: str) -> tuple[dict[str, Any], dict[KeyPath,
         data = yaml.safe_load(text)
     except yaml.YAMLError as error:
         mark = getattr(error, "problem_mark", None)
-        line = mark.line + 1 if mark is not None else None
+        at_line: int | None = mark.line + 1 if mark is not None else None
         problem = getattr(error, "problem", None) or str(error).splitlines()[0]
         raise InputError(
             f"is not valid YAML ({problem})",
             file=file,
-            line=line,
-            key=_key_path_near(text, line) if line is not None else (),
+            line=at_line,
+            key=_key_path_near(text, at_line) if at_line is not None else (),
             fix="check indentation, colons, brackets and quotes on that line and the one before",
         ) from None
     if not isinstance(data, dict) or node is None:

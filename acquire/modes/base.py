@@ -41,8 +41,8 @@ class MeasureContext:
     """What a mode's measurement may use: the runner owns every piece of it."""
 
     protocol: Any  # the mode's protocol model
-    instruments: Any  # acquire.run.instruments.Instruments
-    clock: Any  # acquire.run.clock.Clock
+    instruments: Any  # acquire.runtime.instruments.Instruments
+    clock: Any  # acquire.runtime.clock.Clock
     tables: dict[str, Any]  # file name -> acquire.store.append_table.AppendTable
     readbacks: Callable[[], tuple[float | None, ...]]  # every axis's readback, column order
     heartbeat: Callable[[], None]

@@ -32,10 +32,11 @@ class RigTiming:
             return cls(None, dict.fromkeys(channels, integration),
                        dict.fromkeys(channels, DEFAULT_LATENCY_S), DEFAULT_LATENCY_S,
                        DEFAULT_LATENCY_S)
-        integration, latency = {}, {}
+        integrations: dict[str, float] = {}
+        latency: dict[str, float] = {}
         for name in channels:
             spec = rig.instruments[name]
-            integration[name] = integration_s(spec, rig.mains_frequency)
+            integrations[name] = integration_s(spec, rig.mains_frequency)  # type: ignore[arg-type]
             latency[name] = spec.latency
         readbacks = sum(
             entry[1].latency for role in all_roles() if role.axis is not None
@@ -44,7 +45,7 @@ class RigTiming:
         source = next((spec for spec in rig.instruments.values() if spec.role == source_role),
                       None)
         source_latency = source.latency if source is not None else DEFAULT_LATENCY_S
-        return cls(rig, integration, latency, source_latency, readbacks)
+        return cls(rig, integrations, latency, source_latency, readbacks)
 
     def axis_spec(self, axis: str) -> Any:
         """The rig entry that moves `axis`, or None (no rig given, or the rig has none)."""

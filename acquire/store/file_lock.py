@@ -2,10 +2,10 @@
 
 from __future__ import annotations
 
-import os
+import sys
 from typing import IO
 
-if os.name == "nt":  # instrument PCs often run Windows
+if sys.platform == "win32":  # instrument PCs often run Windows
     import msvcrt
 
     def try_lock(handle: IO[str]) -> bool:

@@ -17,11 +17,11 @@ from importlib import metadata
 from pathlib import Path
 from typing import Any
 
-from acquire import __version__
 from acquire.errors import InputError
 from acquire.store.append_table import atomic_write_text
 from acquire.store.file_lock import try_lock, unlock
 from acquire.store.run_record import RunRecord, parse_run_record
+from acquire.version import __version__
 
 LIBRARIES = ("numpy", "pandas", "pint", "pydantic", "pyvisa", "pyvisa-sim", "pyvisa-py", "scipy")
 

@@ -44,7 +44,7 @@ class VoltmeterSpec(InstrumentSpec):
 
     @property
     def range_V(self) -> float | None:
-        return None if self.range in (None, "auto") else float(self.range)  # type: ignore[arg-type]
+        return self.range if isinstance(self.range, float) else None
 
 
 def integration_s(spec: VoltmeterSpec | None, mains_frequency_Hz: float) -> float:

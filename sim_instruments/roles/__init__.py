@@ -26,7 +26,8 @@ def simulated_role(role: str) -> Callable[[Any, str, Any], Any]:
     except ModuleNotFoundError:
         raise ValueError(f"no simulated behaviour for the role {role!r} "
                          f"(sim_instruments/roles/{role}.py)") from None
-    return module.build  # type: ignore[no-any-return]
+    build: Callable[[Any, str, Any], Any] = module.build
+    return build
 
 
 @cache

@@ -10,9 +10,9 @@ from __future__ import annotations
 
 from typing import Any
 
-from acquire.run.clock import Clock
-from acquire.run.instruments import Instruments
-from acquire.run.waits import StabilityWait, WaitTimeout
+from acquire.runtime.clock import Clock
+from acquire.runtime.instruments import Instruments
+from acquire.runtime.waits import StabilityWait, WaitTimeout
 from drivers.rig import Rig
 from drivers.roles import role_of_axis
 from drivers.roles.base import Axis, PositionerMotion, SettleMotion

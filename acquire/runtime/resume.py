@@ -10,8 +10,8 @@ import pandas as pd
 from acquire.errors import InputError
 from acquire.inputs.load import check_pair, load_protocol, load_rig
 from acquire.plan.estimate import estimate
-from acquire.run.clock import Clock, RealClock, VirtualClock
-from acquire.run.session import RunOptions, _execute
+from acquire.runtime.clock import Clock, RealClock, VirtualClock
+from acquire.runtime.session import RunOptions, _execute
 from acquire.store.append_table import atomic_write_text
 from acquire.store.rereduce import reduced_points, write_table
 from acquire.store.run_folder import RunFolder, utc_now

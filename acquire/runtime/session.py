@@ -7,6 +7,7 @@ import logging
 import signal
 import subprocess
 import sys
+from collections.abc import Callable
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -16,13 +17,13 @@ from acquire.inputs.load import LoadedProtocol, LoadedRig, check_pair, load_prot
 from acquire.inputs.normalise import normalised_protocol, normalised_rig
 from acquire.plan.estimate import Estimate, estimate, format_duration
 from acquire.plan.limits import command_limits
-from acquire.run.cautions import CAUTION
-from acquire.run.clock import Clock, RealClock, VirtualClock
-from acquire.run.instruments import Instruments
-from acquire.run.progress import Progress
-from acquire.run.runner import Runner, StopRun
-from acquire.run.stop_signals import on_stop_signals
-from acquire.run.sweep_log import SweepLog
+from acquire.runtime.cautions import CAUTION
+from acquire.runtime.clock import Clock, RealClock, VirtualClock
+from acquire.runtime.instruments import Instruments
+from acquire.runtime.progress import Progress
+from acquire.runtime.runner import Runner, StopRun
+from acquire.runtime.stop_signals import on_stop_signals
+from acquire.runtime.sweep_log import SweepLog
 from acquire.store.append_table import AppendTable
 from acquire.store.run_folder import (
     RunFolder,
@@ -75,13 +76,18 @@ def _raise_interrupt(signum: int, frame: object) -> None:
     raise Interrupted(signal.Signals(signum).name)
 
 
+def _both(first: Callable[[Any], None], second: Callable[[Any], None], value: Any) -> None:
+    first(value)
+    second(value)
+
+
 def _open(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, options: RunOptions,
           seed: int | None) -> tuple[dict[str, Any], Any]:
-    from acquire.run.visa_library import resource_manager_for
+    from acquire.runtime.visa_library import resource_manager_for
     from drivers.factory import open_instruments
 
     if options.simulate:
-        from acquire.run.simulation import simulate
+        from acquire.runtime.simulation import simulate
 
         simulated = simulate(loaded, rig, clock, seed)
         return open_instruments(rig.rig, simulated.resource_manager), simulated
@@ -123,7 +129,7 @@ def _execute(
             opened, simulated = _open(loaded, rig, clock, options, seed)
             instruments = Instruments(rig.rig, opened, command_limits(loaded, rig))
             runner = Runner(loaded, rig, instruments, clock, tables,
-                            on_point=lambda o: (progress.point_done(o), sweeps.add(o)),
+                            on_point=lambda o: _both(progress.point_done, sweeps.add, o),
                             heartbeat=progress.heartbeat,
                             sync_interval_s=DRY_RUN_SYNC_S if virtual else 0.0)
             record.instruments = runner.identities(opened)
@@ -187,7 +193,7 @@ def start_run(protocol_path: Path, rig_path: Path, out: Path, options: RunOption
         # Real instruments: the operator sees the cautions once more before anything is sent.
         print(CAUTION, file=sys.stderr)
     if options.simulate:
-        from acquire.run.simulation import sample_for
+        from acquire.runtime.simulation import sample_for
 
         sample_for(loaded, rig, options.seed)  # bad simulation settings: exit 2 before any file
     folder = RunFolder(out)

@@ -6,7 +6,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 
 from acquire.plan.timing import POLL_INTERVAL_S
-from acquire.run.clock import Clock
+from acquire.runtime.clock import Clock
 
 
 class WaitTimeout(Exception):

@@ -6,7 +6,7 @@ import threading
 from collections.abc import Callable
 from typing import Any
 
-from acquire.run.instruments import Instruments
+from acquire.runtime.instruments import Instruments
 from drivers.roles import role_named
 
 # A shutdown call is bounded by its instrument's VISA timeout plus this much for the thread that

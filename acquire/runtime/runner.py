@@ -19,11 +19,11 @@ from acquire.inputs.load import LoadedProtocol, LoadedRig
 from acquire.inputs.stack import StackGeometry
 from acquire.modes.base import MeasureContext, PointProblem
 from acquire.plan.schedule import Measure, Move, Point, Step, iterate_steps, plans_from
-from acquire.run.clock import Clock
-from acquire.run.instruments import Instruments
-from acquire.run.motions import AxisMover
-from acquire.run.safe_shutdown import make_safe
-from acquire.run.waits import StabilityWait, WaitTimeout
+from acquire.runtime.clock import Clock
+from acquire.runtime.instruments import Instruments
+from acquire.runtime.motions import AxisMover
+from acquire.runtime.safe_shutdown import make_safe
+from acquire.runtime.waits import StabilityWait, WaitTimeout
 from acquire.store.append_table import AppendTable
 from drivers.errors import CommunicationError, InstrumentError, LimitError
 from drivers.roles import movable_axes, role_named, role_of_axis
@@ -274,5 +274,5 @@ class Runner:
             table.commit(durable)
 
     def shutdown(self) -> list[str]:
-        """The safe state (see acquire.run.safe_shutdown); failures are returned for the log."""
+        """The safe state (see acquire.runtime.safe_shutdown); failures are returned for the log."""
         return make_safe(self.instruments, self.protocol.finish, self._disconnected)

@@ -9,7 +9,7 @@ from typing import Any
 from tqdm import tqdm
 
 from acquire.modes.base import PointSummary
-from acquire.run.runner import PointOutcome
+from acquire.runtime.runner import PointOutcome
 from acquire.store.run_folder import RunFolder
 
 HEARTBEAT_S = 10.0

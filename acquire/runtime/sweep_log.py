@@ -7,7 +7,7 @@ from collections.abc import Callable
 from typing import Any
 
 from acquire.modes.base import PointSummary
-from acquire.run.runner import PointOutcome
+from acquire.runtime.runner import PointOutcome
 
 log = logging.getLogger("flipsweep")
 

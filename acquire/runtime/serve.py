@@ -5,8 +5,8 @@ from __future__ import annotations
 from pathlib import Path
 
 from acquire.inputs.load import LoadedProtocol, LoadedRig, check_pair, load_protocol, load_rig
-from acquire.run.clock import RealClock
-from acquire.run.simulation import sample_for
+from acquire.runtime.clock import RealClock
+from acquire.runtime.simulation import sample_for
 from sim_instruments.faults import FaultPlan
 from sim_instruments.socket_server import SocketRig
 
