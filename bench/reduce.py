@@ -15,7 +15,6 @@ separately and together.
 from __future__ import annotations
 
 import argparse
-import inspect
 import sys
 import time
 from pathlib import Path
@@ -26,6 +25,7 @@ import pandas as pd
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
 from acquire.analysis.fit_tables import FitOptions, RunContext, build_fits_table
+from acquire.modes.dc_reversal import POINTS
 from acquire.modes.dc_reversal.reduction import reduce_readings
 
 PATTERN = "+0-"
@@ -102,9 +102,7 @@ def synthetic_readings(seed: int) -> pd.DataFrame:
 
 
 def reduce(readings: pd.DataFrame) -> pd.DataFrame:
-    parameters = inspect.signature(reduce_readings).parameters
-    extra = {"density_per_ampere": DENSITY_PER_A} if "density_per_ampere" in parameters else {}
-    return reduce_readings(readings, PATTERN, **extra)
+    return reduce_readings(readings, PATTERN, DENSITY_PER_A, None, POINTS.names)
 
 
 def main() -> int:

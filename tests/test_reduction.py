@@ -6,6 +6,7 @@ import numpy as np
 import pandas as pd
 import pytest
 
+from acquire.modes.dc_reversal import POINTS
 from acquire.modes.dc_reversal.reduction import reduce_blocks, reduce_readings
 
 SIGN = {"+": 1, "0": 0, "-": -1}
@@ -159,7 +160,7 @@ def test_bulk_reduction_equals_block_reduction() -> None:
                             }
                         )
     frame = pd.DataFrame(rows).sample(frac=1.0, random_state=3)  # order must not matter
-    points = reduce_readings(frame, pattern, density_per_ampere=2e13)
+    points = reduce_readings(frame, pattern, 2e13, None, POINTS.names)
     assert len(points) == 6
     for row in points.itertuples():
         single = reduce_blocks(
@@ -192,6 +193,6 @@ def test_partial_point_is_left_out() -> None:
         for s in range(2)
     ]
     rows.append({**rows[0], "point": 1})  # one reading of a point that was cut short
-    points = reduce_readings(pd.DataFrame(rows), pattern, per_step=1)
+    points = reduce_readings(pd.DataFrame(rows), pattern, float("nan"), 1, POINTS.names)
     assert list(points["point"]) == [0]
     assert points["resistance_ohm"].iloc[0] == pytest.approx(100.0)

@@ -15,7 +15,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
-from acquire.modes.dc_reversal.tables import POINTS
+from acquire.modes.dc_reversal import POINTS
 
 POINT_COLUMNS = POINTS.names
 

@@ -1,16 +1,19 @@
 """DC current reversal: +I / 0 / -I at every point, even and odd parts of the resistance.
 
-Protocol sections `alternation` and `readings` (section.py); choreography at one point
-(measure.py); readings.csv and points.csv (tables.py); the reduction (reduction.py).
+This module is the mode: its protocol sections (`alternation`, `readings`), its tables
+(readings.csv, points.csv), its timing and its summary. The choreography at one point is in
+measure.py (runner-side), the reduction in reduction.py (pure).
 """
 
 from __future__ import annotations
 
-from typing import Any
+from typing import Any, Literal
 
 import numpy as np
 import pandas as pd
+from pydantic import Field, field_validator
 
+from acquire.inputs.protocol import ProtocolBase, Strict
 from acquire.modes.base import (
     AcquisitionMode,
     MeasureContext,
@@ -18,12 +21,114 @@ from acquire.modes.base import (
     PointSummary,
 )
 from acquire.modes.dc_reversal.measure import DcReversalMeasurement
-from acquire.modes.dc_reversal.reduction import BlockResult, reduce_blocks, reduce_readings
-from acquire.modes.dc_reversal.section import DcReversalProtocol
-from acquire.modes.dc_reversal.tables import POINTS, READINGS
+from acquire.modes.dc_reversal.reduction import (
+    PATTERN_SYMBOLS,
+    BlockResult,
+    reduce_blocks,
+    reduce_readings,
+)
 from acquire.plan.schedule import Point, movable_axis_names
 from acquire.plan.timing import PointCost, RigTiming
-from acquire.store.tables import TableSchema
+from acquire.store.csvw import Column
+from acquire.store.tables import TableSchema, readback_columns, setpoint_columns
+from drivers.quantities import Duration
+
+
+class Alternation(Strict):
+    pattern: str = Field(
+        default="+0-", description="current polarities of one cycle, from '+', '0', '-'"
+    )
+    cycles: int = Field(default=4, ge=1, le=10000)
+    settle: Duration = Field(default=0.02, ge=0, description="wait after each current change")
+
+    @field_validator("pattern")
+    @classmethod
+    def valid_pattern(cls, pattern: str) -> str:
+        bad = sorted(set(pattern) - set(PATTERN_SYMBOLS))
+        if bad:
+            raise ValueError(f"pattern {pattern!r} has {bad}; use only '+', '0' and '-'")
+        if "+" not in pattern or "-" not in pattern:
+            raise ValueError(
+                f"pattern {pattern!r} needs at least one '+' and one '-' to separate "
+                "the even and odd parts; e.g. '+0-'"
+            )
+        if pattern.count("+") != pattern.count("-"):
+            raise ValueError(
+                f"pattern {pattern!r} has unequal numbers of '+' and '-'; "
+                "balanced patterns like '+-', '+0-', '+--+' weight both polarities equally"
+            )
+        return pattern
+
+    @property
+    def polarities(self) -> tuple[int, ...]:
+        return tuple(PATTERN_SYMBOLS[symbol] for symbol in self.pattern)
+
+
+class Readings(Strict):
+    per_step: int = Field(default=1, ge=1, le=1000)
+    channels: list[str] = Field(min_length=1)
+
+    @field_validator("channels")
+    @classmethod
+    def unique_channels(cls, channels: list[str]) -> list[str]:
+        repeated = sorted({name for name in channels if channels.count(name) > 1})
+        if repeated:
+            raise ValueError(f"channel {repeated[0]!r} is listed twice; list each voltmeter once")
+        return channels
+
+
+class DcReversalProtocol(ProtocolBase):
+    mode: Literal["dc_reversal"] = Field(
+        default="dc_reversal", description="DC current reversal (+I / 0 / -I at every point)"
+    )
+    alternation: Alternation = Alternation()
+    readings: Readings
+
+
+READINGS = TableSchema(
+    "readings.csv",
+    "one row per voltmeter reading",
+    (
+        Column("point", "integer", "", "point number in measurement order (stable for a protocol)"),
+        Column("attempt", "integer", "", "0 for the first measurement of the point, +1 per retry"),
+        Column("cycle", "integer", "", "alternation cycle within the point"),
+        Column("step", "integer", "", "position of this polarity in the alternation pattern"),
+        Column("repeat", "integer", "", "reading number within the step"),
+        Column("time_s", "double", "s", "seconds since the run started (run clock)"),
+        Column("timestamp", "dateTime", "", "ISO 8601 UTC time of the reading"),
+        *setpoint_columns(),
+        Column("current_A", "double", "A", "current as applied, signed"),
+        Column("polarity", "integer", "", "+1, 0 or -1"),
+        Column("channel", "string", "", "voltmeter name in the rig"),
+        Column("voltage_V", "double", "V", "the reading"),
+        *readback_columns("at this step"),
+        Column("flags", "string", "",
+               "'|'-separated problems: retry, compliance, instrument_error"),
+    ),
+)
+
+POINTS = TableSchema(
+    "points.csv",
+    "one row per (point, channel)",
+    (
+        Column("point", "integer", "", "point number"),
+        *setpoint_columns(),
+        Column("current_A", "double", "A", "current amplitude"),
+        Column("current_density_A_m2", "double", "A/m^2",
+               "current density in the carrier layer (parallel-resistor model)"),
+        Column("channel", "string", "", "voltmeter name"),
+        Column("n_cycles", "integer", "", "cycles averaged"),
+        Column("resistance_ohm", "double", "ohm", "(V+ - V-)/(2I), mean over cycles"),
+        Column("resistance_ohm_err", "double", "ohm", "standard error over cycles"),
+        Column("unidirectional_ohm", "double", "ohm", "(V+ + V- - 2V0)/(2I), mean over cycles"),
+        Column("unidirectional_ohm_err", "double", "ohm", "standard error over cycles"),
+        Column("unidirectional_ratio", "double", "1", "unidirectional_ohm / resistance_ohm"),
+        Column("unidirectional_ratio_err", "double", "1", "propagated standard error"),
+        Column("offset_V", "double", "V", "zero-current reading (thermoelectric offset)"),
+        Column("offset_V_err", "double", "V", "standard error over cycles"),
+        Column("flags", "string", "", "'|'-separated flags of the point's readings"),
+    ),
+)
 
 POINT_VALUES = ("resistance_ohm", "resistance_ohm_err", "unidirectional_ohm",
                 "unidirectional_ohm_err", "unidirectional_ratio", "unidirectional_ratio_err",
@@ -100,7 +205,8 @@ class DcReversal(AcquisitionMode):
     def reduce_readings(self, readings: pd.DataFrame, normalised: dict[str, Any],
                         density_per_ampere: float) -> pd.DataFrame:
         return reduce_readings(readings, normalised["alternation"]["pattern"],
-                               density_per_ampere, normalised["readings"]["per_step"])
+                               density_per_ampere, normalised["readings"]["per_step"],
+                               POINTS.names)
 
 
 MODE = DcReversal()

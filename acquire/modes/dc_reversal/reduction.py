@@ -11,16 +11,15 @@ The same function serves the live reduction (one point) and `flipsweep reduce` (
 
 from __future__ import annotations
 
+from collections.abc import Sequence
 from dataclasses import dataclass
 
 import numpy as np
 import pandas as pd
 
-from acquire.modes.dc_reversal.section import PATTERN_SYMBOLS
-from acquire.modes.dc_reversal.tables import POINTS
 from acquire.store.tables import setpoint_columns
 
-POINT_COLUMNS = POINTS.names
+PATTERN_SYMBOLS = {"+": 1, "0": 0, "-": -1}
 
 
 @dataclass(frozen=True)
@@ -95,12 +94,14 @@ def _join_flags(flags: pd.Series, keys: pd.DataFrame) -> pd.Series:
 def reduce_readings(
     readings: pd.DataFrame,
     pattern: str,
-    density_per_ampere: float = float("nan"),
-    per_step: int | None = None,
+    density_per_ampere: float,
+    per_step: int | None,
+    columns: Sequence[str],
 ) -> pd.DataFrame:
-    """points.csv from readings.csv alone: complete points only, latest attempt of each point."""
+    """The points table (`columns`, the mode's schema) from the readings table alone:
+    complete points only, the latest attempt of each point."""
     if readings.empty:
-        return pd.DataFrame(columns=list(POINT_COLUMNS))
+        return pd.DataFrame(columns=list(columns))
     frame = readings
     if "attempt" in frame.columns:
         latest = frame.groupby("point", sort=False)["attempt"].transform("max")
@@ -143,11 +144,11 @@ def reduce_readings(
         )
         rows.append(table)
     if not rows:
-        return pd.DataFrame(columns=list(POINT_COLUMNS))
+        return pd.DataFrame(columns=list(columns))
     points = pd.concat(rows, ignore_index=True)
     flags = _join_flags(frame["flags"], frame[["point", "channel"]]) if "flags" in frame else None
     points["flags"] = ""
     if flags is not None and len(flags):
         index = pd.MultiIndex.from_frame(points[["point", "channel"]])
         points["flags"] = flags.reindex(index).fillna("").to_numpy()
-    return points.sort_values(["point"], kind="stable").reset_index(drop=True)[list(POINT_COLUMNS)]
+    return points.sort_values(["point"], kind="stable").reset_index(drop=True)[list(columns)]
