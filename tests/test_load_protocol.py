@@ -92,7 +92,8 @@ def test_extends_is_relative_to_the_file_not_the_working_folder(
     write: Write, tmp_path: Path, monkeypatch: pytest.MonkeyPatch
 ) -> None:
     write("shared/base.yaml", BASE)
-    child = write("samples/b3/child.yaml", "extends: ../../shared/base.yaml\nname: child\n")
+    child = write("samples/b3/child.yaml", "extends: ../../shared/base.yaml\nname: child\n"
+                                           "extends_anywhere: true\n")
     elsewhere = tmp_path / "elsewhere"
     elsewhere.mkdir()
     monkeypatch.chdir(elsewhere)
@@ -127,9 +128,10 @@ def test_lists_replace_rather_than_merge(write: Write) -> None:
 
 
 def test_three_levels(write: Write) -> None:
-    write("a/base.yaml", BASE)
-    write("a/b/middle.yaml", "extends: ../base.yaml\nname: middle\nalternation: {cycles: 2}\n")
-    leaf = write("a/b/c/leaf.yaml", "extends: ../middle.yaml\nalternation: {pattern: '+-'}\n")
+    write("a/b/c/base.yaml", BASE)
+    write("a/b/c/d/middle.yaml",
+          "extends: ../base.yaml\nname: middle\nalternation: {cycles: 2}\n")
+    leaf = write("a/b/c/leaf.yaml", "extends: d/middle.yaml\nalternation: {pattern: '+-'}\n")
     protocol = load_protocol(leaf).protocol
     assert (protocol.name, protocol.alternation.cycles, protocol.alternation.pattern) == (
         "middle", 2, "+-"

@@ -114,8 +114,6 @@ def test_same_as_pint(text: str, dimension: units.Dimension, unit: str) -> None:
         ("1 rad", units.ANGLE, 180 / math.pi),  # 1 rad = 180/pi deg, by definition
         ("0.5 rad/s", units.ANGLE_RATE, 90 / math.pi),
         ("4.2 K", units.TEMPERATURE, 4.2),
-        # T/K = t/degC + 273.15 (SI Brochure 9th ed., sec. 2.3.1; from memory)
-        ("20 degC", units.TEMPERATURE, 293.15),
         ("500 ms", units.TIME, 0.5),
         ("2 min", units.TIME, 120.0),
         ("5 nm", units.LENGTH, 5e-9),
@@ -194,3 +192,65 @@ def test_messages_use_the_right_article() -> None:
 def test_format_si_spells_the_si_unit() -> None:
     assert units.format_si(0.03, units.FIELD) == "0.03 T"
     assert units.format_si(4e-7, units.RESISTIVITY) == "4e-07 ohm*m"
+
+
+# --- one number and a unit, nothing computed -------------------------------------------------
+
+
+@pytest.mark.parametrize("text", ["10**10**10 mA", "2 mA * 3", "1 mA + 1 mA", "(2+3) mA",
+                                  "2 mA / 2", "1 mA**100", "3 mA^10", "1e5000 mA"])
+def test_arithmetic_is_never_evaluated(text: str) -> None:
+    with pytest.raises(UnitError, match="not|cannot read"):
+        to_si(text, units.CURRENT)
+
+
+@pytest.mark.parametrize("text, expected", [("2e11 A/m^2", 2e11), ("1e7 A/cm**2", 1e11),
+                                            ("3 A / m ^ 2", 3.0), ("4 A m^-2", 4.0)])
+def test_unit_powers_and_products_are_read(text: str, expected: float) -> None:
+    # 1 cm^2 = 1e-4 m^2
+    assert to_si(text, units.CURRENT_DENSITY) == pytest.approx(expected, rel=PREFIX_REL)
+
+
+# --- exact CGS fields: one rounding rule for values and limits --------------------------------
+
+
+@pytest.mark.parametrize("text, tesla", [("20 kOe", 2.0), ("1 Oe", 1e-4), ("1 G", 1e-4),
+                                         ("25 kG", 2.5), ("-3 kOe", -0.3)])
+def test_oersted_and_gauss_are_exact(text: str, tesla: float) -> None:
+    # CGS definitions (SI Brochure 8th ed., Table 9): 1 G = 1e-4 T; 1 Oe = 1000/(4 pi) A/m,
+    # which is 1e-4 T as mu0*H with the CGS-era mu0 = 4 pi 1e-7 exactly. Exact to the last
+    # digit (the decimal rendering of the product), so a limit and a value written alike are
+    # the same float.
+    assert to_si(text, units.FIELD) == tesla
+
+
+def test_a_field_rate_in_oersted_is_exact() -> None:
+    assert to_si("6 kOe/min", units.FIELD_RATE) == 0.01  # 0.6 T per 60 s
+
+
+# --- temperatures are absolute, in kelvin ------------------------------------------------------
+
+
+@pytest.mark.parametrize("text, absolute, difference", [
+    # T/K = t/degC + 273.15 and T/K = (t/degF - 32) * 5/9 + 273.15 (SI Brochure 9th ed.,
+    # sec. 2.3.1 for Celsius; the Fahrenheit relation from memory)
+    ("0.05 degC", "273.2 K", "0.05 K"),
+    ("20 degC", "293.15 K", "20 K"),
+    ("50 degF", "283.15 K", "27.7778 K"),
+])
+def test_relative_temperatures_are_refused_with_both_readings(
+    text: str, absolute: str, difference: str
+) -> None:
+    with pytest.raises(UnitError) as error:
+        to_si(text, units.TEMPERATURE)
+    message = str(error.value)
+    assert f"'{absolute}'" in message and f"'{difference}'" in message
+
+
+@pytest.mark.parametrize("text, dimension", [("2 degC/min", units.TEMPERATURE_RATE),
+                                             ("0.1 delta_degC", units.TEMPERATURE)])
+def test_relative_temperature_rates_and_deltas_are_refused(
+    text: str, dimension: units.Dimension
+) -> None:
+    with pytest.raises(UnitError, match="kelvin"):
+        to_si(text, dimension)

@@ -6,6 +6,8 @@ import math
 
 import numpy as np
 
+from drivers.units import tidy
+
 MAX_VALUES_PER_LOOP = 100_000
 
 
@@ -18,8 +20,9 @@ class LoopSpecError(ValueError):
 
 
 def _tidy(values: np.ndarray) -> tuple[float, ...]:
-    # 12 significant digits removes the float noise of start + k*step without moving a real value.
-    return tuple(float(f"{value:.12g}") for value in values)
+    # The rounding of parsed quantities (drivers.units.tidy): removes the float noise of
+    # start + k*step without moving a real value, and rounds values and limits alike.
+    return tuple(tidy(value) for value in values.tolist())
 
 
 def _from_step(start: float, stop: float, step: float) -> np.ndarray:
@@ -96,6 +99,11 @@ def expand(
             raise LoopSpecError("values", "is empty", "list at least one value")
         if spacing == "log":
             raise LoopSpecError("spacing", "log applies to a range", "remove 'spacing'")
+        if len(values) > MAX_VALUES_PER_LOOP:
+            raise LoopSpecError(
+                "values", f"lists {len(values)} values, more than {MAX_VALUES_PER_LOOP}",
+                "split the sweep into several protocols or use a range with a larger step",
+            )
         result = np.asarray(values, dtype=float)
     else:
         if start is None or stop is None:

@@ -7,6 +7,8 @@ so a new role's axis needs no change here.
 
 from __future__ import annotations
 
+import types
+import typing
 from typing import TYPE_CHECKING, Annotated, Any, Literal, Union
 
 from pydantic import (
@@ -17,6 +19,7 @@ from pydantic import (
     WithJsonSchema,
     create_model,
     field_validator,
+    model_validator,
 )
 
 from drivers.quantities import (
@@ -39,8 +42,31 @@ def axis_names() -> tuple[str, ...]:
     return (*(axis.name for axis in movable_axes()), CURRENT_AXIS)
 
 
+def _is_count(annotation: Any) -> bool:
+    """int, int | None, Annotated[int, ...]: a field holding a whole number."""
+    while typing.get_origin(annotation) is Annotated:
+        annotation = typing.get_args(annotation)[0]
+    if annotation is int:
+        return True
+    members = typing.get_args(annotation)
+    return typing.get_origin(annotation) in (Union, types.UnionType) and int in members \
+        and bool not in members
+
+
 class Strict(BaseModel):
     model_config = ConfigDict(extra="forbid", frozen=True, populate_by_name=True)
+
+    @model_validator(mode="before")
+    @classmethod
+    def no_yes_for_a_count(cls, data: object) -> object:
+        # YAML 1.1 reads yes/no/on/off as booleans, and pydantic would take true as 1: the
+        # boolean goes on as the word, which a whole-number field refuses (at its own key).
+        if not isinstance(data, dict):
+            return data
+        counts = {info.alias or name for name, info in cls.model_fields.items()
+                  if _is_count(info.annotation)}
+        return {key: (str(value).lower() if isinstance(value, bool) and key in counts
+                      else value) for key, value in data.items()}
 
 
 class Layer(Strict):
