@@ -76,6 +76,10 @@ class _Frame:
     key: str | int | None = None
 
 
+def _line(event: yaml.Event) -> int | None:
+    return event.start_mark.line + 1 if event.start_mark is not None else None
+
+
 def _path(frames: list[_Frame]) -> KeyPath:
     return tuple(frame.key for frame in frames if frame.key is not None)
 
@@ -97,7 +101,7 @@ def check_shape(text: str, file: str) -> None:
             if frame.count > (2 * MAX_ITEMS if frame.mapping else MAX_ITEMS):
                 raise InputError(
                     f"has more than {MAX_ITEMS} entries in one list or mapping", file=file,
-                    key=_path(frames[:-1]), line=event.start_mark.line + 1,
+                    key=_path(frames[:-1]), line=_line(event),
                     fix=f"keep each list to at most {MAX_ITEMS} values (the longest loop)",
                 )
         if isinstance(event, (yaml.MappingStartEvent, yaml.SequenceStartEvent)):
@@ -105,7 +109,7 @@ def check_shape(text: str, file: str) -> None:
             if len(frames) > MAX_DEPTH:
                 raise InputError(
                     f"nests lists and mappings more than {MAX_DEPTH} levels deep", file=file,
-                    key=_path(frames[:-1]), line=event.start_mark.line + 1,
+                    key=_path(frames[:-1]), line=_line(event),
                     fix="check the brackets on that line",
                 )
         elif isinstance(event, (yaml.MappingEndEvent, yaml.SequenceEndEvent)):
