@@ -2,8 +2,15 @@
 
 drivers/dialects/<role>.yaml holds a role's templates, common.yaml those every instrument
 shares (IEEE 488.2 and the error queue). A template with a reply spec is a query; a template
-with `{value}` (or `{per_minute}`, the value times 60, for rates) takes a number in SI units.
-An empty template means the instrument has no such command (allowed for the `optional` ones).
+with `{value}` takes a number in SI units. `{per_minute}` (the value times 60) is the one
+named scaling, for the templates a dialect file lists under `rates:`. An empty template means
+the instrument has no such command (allowed for the `optional` ones).
+
+A rig's template is checked when it is loaded: the number an instrument reads from the
+rendered text (the whole SCPI numeric token, decoded independently of the field that produced
+it) must be the value itself, or the value with its declared scaling. "{value}E3" (a thousand
+times the value), "1{value}", "{value:%}" or "{value:,}" are refused there, with the file and
+the key, before anything can be sent.
 """
 
 from __future__ import annotations
@@ -35,6 +42,26 @@ VALUE_FIELDS: Mapping[str, float] = MappingProxyType({"value": 1.0, "per_minute"
 # a template that writes "{value}E3" is read as the instrument would read it, a thousand times
 # the value.
 NUMBER_TOKEN = re.compile(r"[-+]?(?:\d+(?:\.\d*)?|\.\d+)(?:[eE][-+]?\d+)?")
+# Characters that, just before the value field, an instrument would read as part of its number.
+_NUMBER_START = frozenset("0123456789.+-")
+# Values a template is rendered with at load time: round numbers every sane precision writes
+# exactly, so any difference is a scaling, not rounding.
+PROBE_VALUES = (2.0, 3.0, -2.0, 2000.0)
+
+
+def read_number(command: str, at: int) -> float | None:
+    """The number an instrument reads from `command` around position `at` (where the value
+    field was rendered): the whole SCPI numeric token that covers it, or None."""
+    start = at
+    while start > 0 and command[start - 1] in _NUMBER_START:
+        start -= 1
+    if start == at:
+        while start < len(command) and command[start] == " ":
+            start += 1
+    token = NUMBER_TOKEN.match(command, start)
+    if token is None or token.end() <= at:
+        return None
+    return float(token.group())
 
 
 @dataclass(frozen=True)
@@ -44,6 +71,7 @@ class Dialect:
     reply_specs: Mapping[str, str]
     optional: frozenset[str]
     rejected: str
+    rates: frozenset[str] = frozenset()  # templates that may use {per_minute}
     parsers: Mapping[str, ReplyParser] = field(init=False, repr=False, compare=False)
     value_fields: Mapping[str, str | None] = field(init=False, repr=False, compare=False)
 
@@ -78,24 +106,19 @@ class Dialect:
     def decode(self, name: str, command: str) -> float:
         """The number (SI) an instrument reads from `command`, rendered from template `name`.
 
-        Read from the text alone, as the instrument reads it: the numeric token where the
-        template's value field starts, divided by the field's declared scaling. A template's
-        precision rounds (`{value:.2g}` sends 1.26 mA as 0.0013) and literal text after the
-        field may extend the number (`{value}E3`); limits are checked against this number.
+        Read from the text alone, as the instrument reads it: the whole numeric token around
+        the place the template's value field starts (literal digits before it and an exponent
+        after it included), divided by the field's declared scaling. A template's precision
+        rounds (`{value:.2g}` sends 1.26 mA as 0.0013); limits are checked against this number.
         """
         field_name = self.value_fields[name]
         if field_name is None:
             raise ValueError(f"{self.role} command {name!r} sends no number")
-        prefix = ""
-        for literal, used, _, _ in string.Formatter().parse(self.commands[name]):
-            prefix += literal
-            if used == field_name:
-                break
-        prefix = prefix.replace("{{", "{").replace("}}", "}")
-        token = NUMBER_TOKEN.match(command, len(prefix)) if command.startswith(prefix) else None
-        if token is None:
+        prefix = literal_prefix(self.commands[name], field_name)
+        number = read_number(command, len(prefix)) if command.startswith(prefix) else None
+        if number is None:
             raise ValueError(f"{command!r} carries no number where {name!r} puts its value")
-        return float(token.group()) / VALUE_FIELDS[field_name]
+        return number / VALUE_FIELDS[field_name]
 
     def render_not_above(self, name: str, value: float) -> str:
         """The command for `value`, rounded toward zero where the template's precision would
@@ -107,6 +130,35 @@ class Dialect:
                 return self.render(name, target)
             target -= (sent - value) * 2.0**attempt
         raise ValueError(f"{self.role} command {name!r} cannot send {value!r} without exceeding it")
+
+
+def literal_prefix(template: str, field_name: str) -> str:
+    """The literal text of `template` before its value field, as it is sent."""
+    prefix = ""
+    for literal, used, _, _ in string.Formatter().parse(template):
+        prefix += literal
+        if used == field_name:
+            break
+    return prefix.replace("{{", "{").replace("}}", "}")
+
+
+def scaling_problem(template: str, field_name: str) -> str | None:
+    """Why the number an instrument reads from `template` is not the value times its field's
+    declared scaling, or None. Checked on round probe values, from the rendered text alone."""
+    scale = VALUE_FIELDS[field_name]
+    at = len(literal_prefix(template, field_name))
+    for value in PROBE_VALUES:
+        command = template.format(value=value, per_minute=value * VALUE_FIELDS["per_minute"])
+        read = read_number(command, at)
+        if read is None:
+            return f"{template!r} renders {value:g} as {command!r}, which carries no number " \
+                   "an instrument can read"
+        if abs(read - value * scale) > 1e-9 * abs(value * scale):
+            factor = read / (value * scale)
+            per = "" if scale == 1 else " per minute"
+            return (f"{template!r} sends {value:g} as {command!r}, which an instrument reads "
+                    f"as {read:g} ({factor:g} times the value{per})")
+    return None
 
 
 def value_field(template: str) -> str | None:
@@ -127,6 +179,7 @@ def _read_dialect_file(path: Path) -> dict[str, Any]:
         "commands": dict(data.get("commands") or {}),
         "replies": dict(data.get("replies") or {}),
         "optional": set(data.get("optional") or ()),
+        "rates": set(data.get("rates") or ()),
     }
 
 
@@ -145,6 +198,7 @@ def role_dialect(role: str) -> Dialect:
         reply_specs=MappingProxyType(replies),
         optional=frozenset(common["optional"] | own["optional"]),
         rejected=rejected,
+        rates=frozenset(own["rates"]),
     )
 
 
@@ -186,6 +240,18 @@ def _checked_template(base: Dialect, name: str, template_name: str, template: st
                 name, key, f"template {template!r} cannot format a number: {error}",
                 "use a float format such as {value:.6g}",
             ) from None
+        if used == "per_minute" and template_name not in base.rates:
+            raise _problem(
+                name, key, f"'{template_name}' is not a rate, so it cannot use {{per_minute}} "
+                f"(the value times 60)", f"e.g. {base.commands[template_name]!r}",
+            )
+        problem = scaling_problem(template, used)
+        if problem is not None:
+            raise _problem(
+                name, key, f"{problem}; the number must be the value itself"
+                + (" or, for a rate, {per_minute}" if template_name in base.rates else ""),
+                f"e.g. {base.commands[template_name]!r}",
+            )
     return template
 
 
@@ -244,6 +310,7 @@ def dialect_for(name: str, spec: InstrumentSpec) -> Dialect:
         reply_specs=MappingProxyType(replies),
         optional=base.optional,
         rejected=rejected,
+        rates=base.rates,
     )
 
 

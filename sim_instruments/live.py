@@ -17,7 +17,7 @@ from pyvisa.rname import to_canonical_name
 from pyvisa_sim.component import NoResponse, Property
 
 from drivers.command_limits import CommandLimits, past
-from drivers.dialect import ERROR_QUERY, VALUE_FIELDS, Dialect, dialect_for
+from drivers.dialect import ERROR_QUERY, NUMBER_TOKEN, VALUE_FIELDS, Dialect, dialect_for
 from drivers.rig import Rig
 from drivers.roles import role_named
 from sim_instruments.reply_text import ReplyWriter, reply_writer
@@ -73,16 +73,24 @@ class ErrorQueue:
             self._queue.clear()
 
 
+def read_sent_number(text: object) -> float | None:
+    """The number a real instrument reads from the value part of a command: one SCPI numeric
+    token (SCPI-99 vol. 1, decimal numeric program data), exponent included; None if the text
+    is anything else."""
+    token = NUMBER_TOKEN.fullmatch(str(text).strip())
+    return float(token.group()) if token is not None else None
+
+
 def _value_command(
     apply: Callable[[float], object], scale: float, errors: ErrorQueue,
     refuse: Callable[[float], bool],
 ) -> Callable[[Any], None]:
     def set_from_text(text: Any) -> None:
-        try:
-            value = float(text) / scale
-        except (TypeError, ValueError):
+        number = read_sent_number(text)
+        if number is None:
             errors.push(DATA_TYPE_ERROR)
             return
+        value = number / scale
         if refuse(value):
             errors.push(DATA_OUT_OF_RANGE)
             return

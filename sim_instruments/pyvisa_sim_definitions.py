@@ -15,6 +15,7 @@ Regenerate sim_instruments/generic.yaml (the built-in simulated rig) with
 from __future__ import annotations
 
 import math
+import re
 import string
 from pathlib import Path
 from typing import Any
@@ -51,13 +52,29 @@ def identity(role: str, instrument: str) -> str:
     return f"flipsweep-sim,{role},{instrument},1.0"
 
 
+# Literal text next to a value field that an instrument reads as part of the number: digits,
+# a point or a sign just before it, an exponent or digits just after it.
+_NUMBER_BEFORE = re.compile(r"[-+0-9.]+$")
+_NUMBER_AFTER = re.compile(r"^(?:[0-9.]*(?:[eE][-+]?[0-9]+)?)")
+
+
 def setter_pattern(template: str) -> str:
-    """A pyvisa-sim setter pattern for a template: its value field becomes `{}`."""
-    parts = []
+    """A pyvisa-sim setter pattern for a template: its value field becomes `{}`, together
+    with any literal text an instrument would read as part of the same number, so the
+    simulated instrument decodes the whole numeric token as a real one does (a template's
+    "{value}E3" reaches it as "0.004E3", a thousand times the value, not as "0.004")."""
+    parts: list[str] = []
+    after_field = False
     for literal, field, _, _ in string.Formatter().parse(template):
+        literal = literal.replace("{{", "{").replace("}}", "}")
+        if after_field:
+            literal = literal[_NUMBER_AFTER.match(literal).end():]  # type: ignore[union-attr]
+        if field is not None:
+            literal = _NUMBER_BEFORE.sub("", literal)
         parts.append(literal.replace("{", "{{").replace("}", "}}"))
         if field is not None:
             parts.append("{}")
+        after_field = field is not None
     return "".join(parts)
 
 

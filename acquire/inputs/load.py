@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import math
 from dataclasses import dataclass
 from pathlib import Path
 from typing import Any
@@ -100,16 +101,42 @@ def _check_axis_values(
             raise source.error(problem[0], key, problem[1])
 
 
+def _check_limits_section(protocol: Any, source: SourceMap) -> None:
+    limits = protocol.limits
+    if limits.current is None and limits.current_density is None and limits.power is None:
+        raise source.error(
+            "sets no current limit for the sample", ("limits",),
+            "add 'current: 5 mA', 'current_density: 1e11 A/m^2' or 'power: 1 mW' under limits",
+        )
+    if isinstance(limits.current_density, dict):
+        names = [layer.name for layer in protocol.sample.layers]
+        for name in limits.current_density:
+            if name not in names:
+                raise source.error(
+                    f"no layer is named {name!r}", ("limits", "current_density", name),
+                    did_you_mean(name, names) or f"the layers are {', '.join(names)}",
+                )
+
+
+def _check_point_count(protocol: Any, values: tuple[tuple[float, ...], ...],
+                       source: SourceMap) -> None:
+    points = math.prod(len(one_pass) for one_pass in values)
+    if points > protocol.max_points:
+        raise source.error(
+            f"the loops give {points:,} points, more than max_points {protocol.max_points:,}",
+            ("loops",),
+            "check the steps for a unit slip; if that many points are intended, "
+            f"add 'max_points: {points}' at the top of the protocol",
+        )
+
+
 def load_protocol(path: Path) -> LoadedProtocol:
     document = load_document(path)
     mode = _mode_of(document)
     protocol = validate(mode.protocol_model, document)
-    if protocol.limits.current is None and protocol.limits.current_density is None:
-        raise document.source.error(
-            "sets no current limit for the sample", ("limits",),
-            "add 'current: 5 mA' or 'current_density: 1e11 A/m^2' under limits",
-        )
+    _check_limits_section(protocol, document.source)
     values = _expand_loops(protocol, document.source)
+    _check_point_count(protocol, values, document.source)
     loaded = LoadedProtocol(protocol, document, path, values, mode)
     mode.check(loaded)
     return loaded

@@ -53,10 +53,12 @@ def normalised_protocol(loaded: LoadedProtocol) -> dict[str, Any]:
         },
         "limits": {
             "current_A": protocol.limits.current,
-            "current_density_A_m2": protocol.limits.current_density,
+            "current_density_A_m2": protocol.limits.current_density,  # or per layer
+            "power_W": protocol.limits.power,
             "field_T": protocol.limits.field,
             "temperature_max_K": protocol.limits.temperature_max,
         },
+        "max_points": protocol.max_points,
         "finish": protocol.finish.model_dump(),
         "on_problem": protocol.on_problem.model_dump(),
         "notify": protocol.notify,

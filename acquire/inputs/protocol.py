@@ -13,6 +13,7 @@ from typing import TYPE_CHECKING, Annotated, Any, Literal, Union
 
 from pydantic import (
     BaseModel,
+    BeforeValidator,
     ConfigDict,
     Discriminator,
     Field,
@@ -22,10 +23,11 @@ from pydantic import (
     model_validator,
 )
 
+from drivers import units
 from drivers.quantities import (
     Current,
-    CurrentDensity,
     Length,
+    Power,
     Resistance,
     Resistivity,
     Temperature,
@@ -35,6 +37,9 @@ from drivers.roles import movable_axes
 
 CURRENT_AXIS = "current"  # the excitation amplitude: every mode sweeps it
 ROTATION_PLANES = ("xy", "zx", "zy")
+# A protocol with more points than this is refused unless it raises `max_points` itself: a
+# step slip (1 uT for 1 mT) must not become a week-long night that `check` calls valid.
+DEFAULT_MAX_POINTS = 1_000_000
 
 
 def axis_names() -> tuple[str, ...]:
@@ -157,10 +162,47 @@ else:
     Waits = _waits_model()
 
 
+def _density_limit(value: object) -> float | dict[str, float]:
+    """One density for every layer ('2e11 A/m^2'), or one per layer ({Pt: ..., NiFe: ...})."""
+    def one(text: object, where: str) -> float:
+        try:
+            density = units.to_si(text, units.CURRENT_DENSITY)
+        except units.UnitError as error:
+            raise ValueError(f"{where}{error}") from None
+        if density <= 0:
+            raise ValueError(f"{where}must be greater than 0")
+        return density
+
+    if isinstance(value, dict):
+        if not value:
+            raise ValueError("name at least one layer, or give one density for every layer")
+        return {str(name): one(text, f"layer {name!s}: ") for name, text in value.items()}
+    return one(value, "")
+
+
+DensityLimit = Annotated[
+    float | dict[str, float],
+    BeforeValidator(_density_limit),
+    WithJsonSchema({
+        "oneOf": [
+            {"type": "string", "description": "a current density for every layer, e.g. "
+                                              "'2e11 A/m^2'"},
+            {"type": "object", "additionalProperties": {"type": "string"},
+             "description": "a current density per layer name, e.g. {Pt: '2e11 A/m^2'}"},
+        ],
+    }),
+]
+
+
 class SampleLimits(Strict):
     current: Current | None = Field(default=None, gt=0, description="largest current amplitude")
-    current_density: CurrentDensity | None = Field(
-        default=None, gt=0, description="in the carrier layer"
+    current_density: DensityLimit | None = Field(
+        default=None,
+        description="in every layer (parallel-resistor model), or per layer by name",
+    )
+    power: Power | None = Field(
+        default=None, gt=0,
+        description="largest peak power dissipated in the channel, I^2 R with the model's R",
     )
     field: FieldQuantity | None = Field(default=None, gt=0, description="largest |mu0*H|")
     temperature_max: Temperature | None = Field(default=None, gt=0)
@@ -210,6 +252,10 @@ class ProtocolBase(Strict):
     loops: list[Loop] = Field(min_length=1)
     waits: Waits = Waits()
     limits: SampleLimits
+    max_points: int = Field(
+        default=DEFAULT_MAX_POINTS, ge=1,
+        description="refuse the protocol if its loops give more points than this",
+    )
     finish: Finish = Finish()
     on_problem: OnProblem = OnProblem()
     notify: list[str] | None = Field(

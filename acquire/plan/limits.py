@@ -5,6 +5,12 @@ Every value any loop (or the finish) can send is compared with every limit that 
 with the same rule the transport applies at run time (drivers.command_limits): the rig's
 bounds per command template, tightened by the protocol's limits. A violation names the loop
 value that breaks it.
+
+The sample's own limits: `current` (amplitude; the peak for modes that say so),
+`current_density` in every layer of the parallel-resistor model (one value for all layers, or
+one per layer by name), and `power`, the peak power dissipated between the probes, I^2 R with
+the model resistance. Each is also turned into a largest current (`current_high`) that the
+run's guard and the transport hold every command to.
 """
 
 from __future__ import annotations
@@ -35,6 +41,7 @@ class LimitReport:
     expected_peak_voltage_V: float
     compliance_V: float | None
     warnings: tuple[str, ...]
+    peak_power_W: float = 0.0  # I^2 R at the peak current, with the model resistance
 
 
 @dataclass(frozen=True)
@@ -62,14 +69,28 @@ def _fail(loaded: LoadedProtocol, axis: str, value: float, problem: str, fix: st
     return loaded.document.source.error(problem, _value_key(loaded, axis, value), fix)
 
 
+def density_limits(protocol: Any) -> dict[str, float]:
+    """Layer name -> the current density limit it is held to (a single value: every layer)."""
+    limit = protocol.limits.current_density
+    if limit is None:
+        return {}
+    if isinstance(limit, dict):
+        return dict(limit)
+    return {layer.name: float(limit) for layer in protocol.sample.layers}
+
+
 def current_high(loaded: LoadedProtocol) -> float | None:
     """The largest instantaneous current the protocol's own limits allow, or None."""
-    limits = loaded.protocol.limits
-    per_ampere = StackGeometry.from_sample(loaded.protocol.sample).carrier_density_per_ampere
-    bounds = [bound for bound in (
-        limits.current,
-        limits.current_density / per_ampere if limits.current_density else None,
-    ) if bound is not None]
+    protocol = loaded.protocol
+    limits = protocol.limits
+    geometry = StackGeometry.from_sample(protocol.sample)
+    per_ampere = geometry.densities(1.0)
+    bounds = [limit / per_ampere[name] for name, limit in density_limits(protocol).items()
+              if per_ampere[name] > 0]
+    if limits.current is not None:
+        bounds.append(limits.current)
+    if limits.power is not None:
+        bounds.append(math.sqrt(limits.power / geometry.resistance_ohm))
     return min(bounds) if bounds else None
 
 
@@ -108,8 +129,9 @@ def _finish_target(loaded: LoadedProtocol, axis: Axis) -> float | None:
 
 
 def _sent(loaded: LoadedProtocol, axis: str) -> Iterator[tuple[float, bool]]:
-    """(value, from the finish section) for every setpoint of `axis` the run may send."""
-    for value in loaded.values_of(axis):
+    """(value, from the finish section) for every setpoint of `axis` the run may send, each
+    distinct value once (a there-and-back sweep sends each value twice; the check is the same)."""
+    for value in dict.fromkeys(loaded.values_of(axis)):
         yield value, False
     if axis != CURRENT_AXIS:
         target = _finish_target(loaded, next(a for a in movable_axes() if a.name == axis))
@@ -165,28 +187,9 @@ def check_limits(loaded: LoadedProtocol, rig: LoadedRig | None) -> LimitReport:
     mode = loaded.mode
     geometry = StackGeometry.from_sample(protocol.sample)
     warnings: list[str] = []
-    amplitudes = loaded.values_of(CURRENT_AXIS)
-    per_ampere = geometry.carrier_density_per_ampere
+    amplitudes = tuple(dict.fromkeys(loaded.values_of(CURRENT_AXIS)))  # each distinct once
     for amplitude in amplitudes:
-        current = mode.peak_current(protocol, amplitude)
-        if protocol.limits.current is not None and past(current, None,
-                                                        protocol.limits.current, True):
-            raise _fail(
-                loaded, CURRENT_AXIS, amplitude,
-                f"current {CURRENT.shown(current)} exceeds the sample limit "
-                f"{CURRENT.shown(protocol.limits.current)} (limits.current)",
-                "lower the current or, if the device allows it, raise limits.current",
-            )
-        density = current * per_ampere
-        density_limit = protocol.limits.current_density
-        if density_limit is not None and past(density, None, density_limit, True):
-            raise _fail(
-                loaded, CURRENT_AXIS, amplitude,
-                f"current {CURRENT.shown(current)} gives {density:.3g} A/m^2 in the "
-                f"{geometry.carrier_name} layer, above limits.current_density "
-                f"{density_limit:.3g} A/m^2",
-                f"keep the current below {density_limit / per_ampere * 1e3:.3g} mA",
-            )
+        _check_sample_current(loaded, geometry, amplitude)
     peak = max(mode.peak_current(protocol, amplitude) for amplitude in amplitudes)
     expected_voltage = peak * geometry.resistance_ohm
     compliance = None
@@ -219,7 +222,45 @@ def check_limits(loaded: LoadedProtocol, rig: LoadedRig | None) -> LimitReport:
                             amplitude, False, CURRENT_AXIS)
         _check_rig_axes(loaded, rig, tables)
     return LimitReport(peak, geometry.densities(peak), expected_voltage, compliance,
-                       tuple(warnings))
+                       tuple(warnings), peak**2 * geometry.resistance_ohm)
+
+
+def _check_sample_current(loaded: LoadedProtocol, geometry: StackGeometry,
+                          amplitude: float) -> None:
+    protocol = loaded.protocol
+    limits = protocol.limits
+    current = loaded.mode.peak_current(protocol, amplitude)
+    shown = CURRENT.shown(current)
+    if limits.current is not None and past(current, None, limits.current, True):
+        raise _fail(
+            loaded, CURRENT_AXIS, amplitude,
+            f"current {shown} exceeds the sample limit {CURRENT.shown(limits.current)} "
+            "(limits.current)",
+            "lower the current or, if the device allows it, raise limits.current",
+        )
+    densities = geometry.densities(current)
+    every_layer = not isinstance(limits.current_density, dict)
+    for name, limit in density_limits(protocol).items():
+        if past(densities[name], None, limit, True):
+            scope = " (one value: it applies to every layer)" if every_layer else ""
+            highest = limit / (densities[name] / current)
+            raise _fail(
+                loaded, CURRENT_AXIS, amplitude,
+                f"current {shown} gives {densities[name]:.3g} A/m^2 in the {name} layer, "
+                f"above limits.current_density {limit:.3g} A/m^2{scope}",
+                f"keep the current below {highest * 1e3:.3g} mA",
+            )
+    if limits.power is not None:
+        resistance = geometry.resistance_ohm
+        power = current**2 * resistance
+        if past(power, None, limits.power, False):
+            raise _fail(
+                loaded, CURRENT_AXIS, amplitude,
+                f"current {shown} dissipates {power * 1e3:.3g} mW in the channel (I^2 R with "
+                f"the model's {resistance:.4g} ohm), above limits.power "
+                f"{limits.power * 1e3:.3g} mW",
+                f"keep the current below {math.sqrt(limits.power / resistance) * 1e3:.3g} mA",
+            )
 
 
 def rig_high(spec: Any, limit: Any) -> float | None:
