@@ -19,6 +19,7 @@ ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
 
 PROTOCOL = """extends: {base}
+extends_anywhere: true
 name: dry-run benchmark
 loops:
   - {{axis: field, values: [0.5 T]}}

@@ -187,6 +187,59 @@ def _check_distinct(instrument: str, dialect: Dialect, names: list[str]) -> None
         seen[text] = name
 
 
+# A rig's `simulation:` key asking a rehearsal to use the rig's own `driver:` classes (they are
+# imported, i.e. run, only then); by default the role's built-in driver stands in for each.
+OWN_DRIVERS = "own_drivers"
+# Stand-in addresses, by interface, for resources pyvisa-sim cannot open.
+_SIMULATED_BOARDS = {"ASRL": "ASRL{n}::INSTR", "GPIB": "GPIB0::{n}::INSTR",
+                     "TCPIP": "TCPIP0::sim{n}.invalid::INSTR",
+                     "USB": "USB0::0x0001::0x0001::SIM{n}::INSTR"}
+
+
+def _simulator_can_open(resource: str) -> bool:
+    """pyvisa-sim reads boards, addresses and ports as integers (a serial port's device path,
+    'ASRL/dev/ttyUSB0::INSTR', is valid VISA that it cannot open)."""
+    try:
+        parsed = rname.parse_resource_name(resource)
+        for part in ("board", "primary_address", "secondary_address", "port"):
+            value = getattr(parsed, part, None)
+            if value is not None:
+                int(value)
+    except (rname.InvalidResourceName, ValueError, TypeError):
+        return False
+    return True
+
+
+def _simulator_resource(resource: str, number: int) -> str:
+    try:
+        interface = rname.parse_resource_name(resource).interface_type
+    except rname.InvalidResourceName:
+        interface = "GPIB"
+    template = _SIMULATED_BOARDS.get(interface, _SIMULATED_BOARDS["GPIB"])
+    return template.format(n=number)
+
+
+def simulator_rig(rig: Rig) -> Rig:
+    """The rig as the simulator serves it: every instrument at an address pyvisa-sim can open
+    (any resource string of the rig file is fine; the ones it cannot open get a stand-in of the
+    same interface), and the role's built-in driver unless `simulation: {own_drivers: true}`."""
+    own_drivers = bool(rig.simulation.get(OWN_DRIVERS, False))
+    used = {spec.resource for spec in rig.instruments.values()}
+    instruments = {}
+    number = 100
+    for name, spec in rig.instruments.items():
+        changes: dict[str, Any] = {}
+        if not _simulator_can_open(spec.resource):
+            while _simulator_resource(spec.resource, number) in used:
+                number += 1
+            changes["resource"] = _simulator_resource(spec.resource, number)
+            used.add(changes["resource"])
+        if spec.driver is not None and not own_drivers:
+            changes["driver"] = None
+        instruments[name] = spec.model_copy(update=changes) if changes else spec
+    return rig.model_copy(update={"instruments": instruments})
+
+
 def rig_definitions(rig: Rig) -> dict[str, Any]:
     devices = {}
     resources = {}

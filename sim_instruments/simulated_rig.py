@@ -16,7 +16,7 @@ import pyvisa
 
 from drivers.rig import Rig
 from sim_instruments.live import couple
-from sim_instruments.pyvisa_sim_definitions import write_rig_definitions
+from sim_instruments.pyvisa_sim_definitions import simulator_rig, write_rig_definitions
 from sim_instruments.roles import build_world
 from sim_instruments.world import Clock, Sample, SimulatedWorld
 
@@ -26,6 +26,9 @@ class SimulatedRig:
     resource_manager: pyvisa.ResourceManager
     world: SimulatedWorld
     definitions: Path | None = field(default=None)  # kept only when a folder was given
+    # The rig as simulated (sim_instruments.pyvisa_sim_definitions.simulator_rig): open the
+    # drivers with this one (addresses pyvisa-sim can open; `driver:` only if asked for).
+    rig: Rig | None = None
 
     def truth(self) -> dict[str, object]:
         """The sample model's true parameters and the world's settings, JSON-ready."""
@@ -44,6 +47,7 @@ def open_simulated_rig(
     Initial state: field 0 T, angle 0 deg, output off at 0 A, bath at 300 K (or the rig's
     `simulation: {start_temperature_K: ...}`).
     """
+    rig = simulator_rig(rig)
     # pyvisa caches a library per definitions path while it is in use: a unique file name
     # keeps two simulated rigs apart.
     folder = definitions_dir or Path(tempfile.mkdtemp(prefix="flipsweep-sim-"))
@@ -60,4 +64,4 @@ def open_simulated_rig(
             shutil.rmtree(folder, ignore_errors=True)
     world = build_world(clock, sample, rig)
     couple(manager, world, rig)
-    return SimulatedRig(manager, world, path if definitions_dir is not None else None)
+    return SimulatedRig(manager, world, path if definitions_dir is not None else None, rig)

@@ -154,7 +154,7 @@ class SocketRig:
         devices = self.simulation.resource_manager.visalib.devices  # type: ignore[attr-defined]
         self.instruments = {
             name: ServedInstrument(
-                name, spec, devices[to_canonical_name(spec.resource)],
+                name, spec, devices[to_canonical_name(self._simulated_resource(name))],
                 spec.write_termination.encode() or b"\n", spec.read_termination.encode(),
             )
             for name, spec in instruments.items()
@@ -167,6 +167,9 @@ class SocketRig:
         self._selector: selectors.BaseSelector | None = None
         self._thread: threading.Thread | None = None
         self._stopping = threading.Event()
+
+    def _simulated_resource(self, name: str) -> str:
+        return (self.simulation.rig or self.rig).instruments[name].resource
 
     # -- lifetime ---------------------------------------------------------------------------
     def start(self) -> dict[str, str]:

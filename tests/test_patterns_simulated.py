@@ -17,6 +17,7 @@ RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
 # 16 cycles: the standard error over cycles is then itself known to ~18 %, so a 3-sigma
 # window is a fair test (with 8 cycles Student's t tails make 3-sigma misses common).
 PROTOCOL = """extends: {base}
+extends_anywhere: true
 name: pattern check
 alternation: {{pattern: "{pattern}", cycles: 16, settle: 20 ms}}
 readings: {{per_step: 2, channels: [vxx]}}

@@ -16,6 +16,7 @@ ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
 
 LADDER = """extends: {base}
+extends_anywhere: true
 name: policy check
 alternation: {{pattern: "+-", cycles: 2, settle: 5 ms}}
 readings: {{per_step: 1, channels: [vxx]}}
@@ -92,6 +93,7 @@ def test_compliance_stop_ends_the_run_safely(
 
 
 TEMPERATURE = """extends: {base}
+extends_anywhere: true
 name: wait policy
 alternation: {{pattern: "+-", cycles: 1, settle: 5 ms}}
 readings: {{per_step: 1, channels: [vxx]}}

@@ -65,6 +65,8 @@ def cmd_schema(args: argparse.Namespace) -> int:
         # all come from the base, so they are required only of a file without 'extends'.
         schema["properties"] = {
             "extends": {"type": "string", "description": "path of a base file, relative to this"},
+            "extends_anywhere": {"type": "boolean", "description": "let `extends` leave this "
+                                 "file's folder (only in the file given on the command line)"},
             **schema["properties"],
         }
         required = schema.pop("required", [])

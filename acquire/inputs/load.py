@@ -11,6 +11,7 @@ from acquire.errors import InputError
 from acquire.inputs import loops as loop_values
 from acquire.inputs.protocol import CURRENT_AXIS
 from acquire.inputs.pydantic_errors import did_you_mean, validate
+from acquire.inputs.rig_checks import driver_problem, resource_problem, visa_library_problem
 from acquire.inputs.simulated_sample import simulated_sample
 from acquire.inputs.yaml_source import LoadedDocument, SourceMap, load_document
 from acquire.modes import DEFAULT_MODE, mode_named, mode_names
@@ -153,6 +154,12 @@ def _check_instruments(rig: Rig, source: SourceMap) -> None:
             role_named(spec.role).check(spec)
         except InputError as error:
             raise _located(source, error, ("instruments", name)) from None
+        problem = resource_problem(spec.resource)
+        if problem is not None:
+            raise source.error(problem[0], ("instruments", name, "resource"), problem[1])
+        problem = driver_problem(spec.driver) if spec.driver is not None else None
+        if problem is not None:
+            raise source.error(problem[0], ("instruments", name, "driver"), problem[1])
     resources: dict[str, str] = {}
     for name, spec in rig.instruments.items():
         if spec.resource in resources:
@@ -191,6 +198,9 @@ def load_rig(path: Path) -> LoadedRig:
                     did_you_mean(role, role_names()) or f"use one of {', '.join(role_names())}",
                 )
     rig: Rig = validate(Rig, document)
+    problem = visa_library_problem(rig.visa_library, path.parent)
+    if problem is not None:
+        raise document.source.error(problem[0], ("visa_library",), problem[1])
     _check_instruments(rig, document.source)
     return LoadedRig(rig, document, path)
 

@@ -7,6 +7,7 @@ from typing import Any
 
 from acquire.inputs.stack import LayerShare, carrier_index, channel_resistance, current_fractions
 from acquire.inputs.yaml_source import SourceMap
+from sim_instruments.pyvisa_sim_definitions import OWN_DRIVERS
 from sim_instruments.sample_model import BilayerSample, SampleParameters
 from sim_instruments.world import sample_overrides
 
@@ -29,10 +30,11 @@ def simulated_sample(protocol: Any, simulation: dict[str, Any], source: SourceMa
         "carrier_thickness_m": layers[carrier_index(layers)].thickness_m,
         "carrier_fraction": current_fractions(layers)[carrier_index(layers)],
     }
+    model_settings = {key: value for key, value in simulation.items() if key != OWN_DRIVERS}
     try:
         # The rig's settings win: a rehearsal may stand in a device unlike the protocol's.
         parameters = SampleParameters.with_overrides(
-            **{**channel, **sample_overrides(simulation)})
+            **{**channel, **sample_overrides(model_settings)})
     except (TypeError, ValueError) as error:
         raise source.error(str(error), ("simulation",)) from None
     return BilayerSample(parameters, protocol.rotation_plane, seed)

@@ -90,7 +90,7 @@ def _open(loaded: LoadedProtocol, rig: LoadedRig, clock: Clock, options: RunOpti
         from acquire.runtime.simulation import simulate
 
         simulated = simulate(loaded, rig, clock, seed)
-        return open_instruments(rig.rig, simulated.resource_manager), simulated
+        return open_instruments(simulated.rig or rig.rig, simulated.resource_manager), simulated
     manager = resource_manager_for(rig.rig.visa_library, rig.rig, rig.path.parent)
     return open_instruments(rig.rig, manager), None
 
