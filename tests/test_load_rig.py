@@ -5,6 +5,7 @@ from __future__ import annotations
 import re
 from collections.abc import Callable
 from pathlib import Path
+from typing import Any
 
 import pytest
 
@@ -96,8 +97,30 @@ def test_every_role_is_one_spec_model_with_its_role_name() -> None:
 # --- the template for a real rig --------------------------------------------------------------
 
 
-def test_template_loads_and_uses_pyvisa_py() -> None:
-    rig = load_rig(TEMPLATE).rig
+def filled_template(folder: Path) -> Path:
+    """The template with each placeholder address filled in, as a user would."""
+    text = TEMPLATE.read_text(encoding="utf-8")
+    for number in (12, 7, 8, 3):
+        text = text.replace("GPIB0::<address>::INSTR", f"GPIB0::{number}::INSTR", 1)
+    text = text.replace("<serial port>", "/dev/ttyUSB0").replace("<host>", "10.0.0.21")
+    path = folder / "my_rig.yaml"
+    path.write_text(text, encoding="utf-8")
+    return path
+
+
+def test_template_as_shipped_is_refused_so_nothing_is_contacted(
+    cli: Callable[..., Any], no_visa: list
+) -> None:
+    for command in (["check", str(PROTOCOLS / "base.yaml"), "--rig", str(TEMPLATE)],
+                    ["instruments", "--rig", str(TEMPLATE)]):
+        result = cli(command)
+        assert result.code == 2
+        assert "placeholder" in result.err and " instruments.source.resource: " in result.err
+    assert no_visa == []
+
+
+def test_template_loads_and_uses_pyvisa_py(tmp_path: Path) -> None:
+    rig = load_rig(filled_template(tmp_path)).rig
     assert rig.visa_library == "@py"
     assert {spec.role for spec in rig.instruments.values()} == set(role_names())
     assert not rig.simulation
@@ -112,8 +135,8 @@ def test_template_explains_every_key() -> None:
         assert re.search(rf"\b{key}\b", comments), f"the template's comments never explain {key!r}"
 
 
-def test_template_pairs_with_every_example_protocol() -> None:
-    rig = load_rig(TEMPLATE)
+def test_template_pairs_with_every_example_protocol(tmp_path: Path) -> None:
+    rig = load_rig(filled_template(tmp_path))
     for path in sorted(PROTOCOLS.glob("*.yaml")):
         check_pair(load_protocol(path), rig)
 

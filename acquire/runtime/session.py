@@ -66,7 +66,8 @@ def input_record(document_texts: dict[str, str], main: Path, normalised: dict[st
                  ) -> InputRecord:
     return InputRecord(
         path=str(main.resolve()),
-        files=[FileRecord(path=path, sha256=sha256_text(text), text=text)
+        files=[FileRecord(path=path, sha256=sha256_text(text),
+                          text=text if path == str(main.resolve()) else None)
                for path, text in document_texts.items()],
         normalised=normalised,
     )

@@ -28,12 +28,13 @@ class Record(BaseModel):
 class FileRecord(Record):
     path: str
     sha256: str
-    text: str
+    text: str | None = None  # the file given only; a base file is recorded by its hash
 
 
 class InputRecord(Record):
-    """A protocol or rig: the file given, every file it was merged from (verbatim, with its
-    SHA-256), and the merged, unit-normalised result."""
+    """A protocol or rig: the file given (verbatim, with its SHA-256), every base file it was
+    merged from (SHA-256 only: a base may hold anything, and stays where it is), and the
+    merged, unit-normalised result."""
 
     path: str
     files: list[FileRecord]
