@@ -23,7 +23,7 @@ from pathlib import Path
 
 sys.path.insert(0, str(Path(__file__).resolve().parents[1]))
 
-from acquire.cli import main  # noqa: E402
+from acquire.cli import main
 
 REPO = Path(__file__).resolve().parents[1]
 RIG = REPO / "protocols" / "rigs" / "simulated.yaml"
