@@ -67,6 +67,22 @@ REQUIRED = {
     "setting on the wrong role": "rig_setting_wrong_role",
     "malformed driver path": "rig_driver_malformed",
     "min not below max": "rig_min_not_below_max",
+    "arithmetic in a quantity": "quantity_arithmetic",
+    "a device file as base": "extends_device_file",
+    "a base outside the folder": "extends_outside_folder",
+    "a relative temperature": "tolerance_celsius",
+    "yes for a count": "cycles_yes",
+    "over the point cap": "too_many_points",
+    "density limit in a non-carrier layer": "limit_density_every_layer",
+    "power limit": "limit_power",
+    "alias bomb": "alias_bomb",
+    "deep nesting": "nested_brackets",
+    "garbage resource string": "rig_resource_garbage",
+    "placeholder resource": "rig_resource_placeholder",
+    "driver module not found": "rig_driver_not_found",
+    "VISA library not found": "rig_visa_library_missing",
+    "template scaling the value": "rig_template_scaled_current",
+    "per_minute on a non-rate": "rig_template_per_minute_current",
 }
 
 

@@ -81,16 +81,30 @@ def _line(event: yaml.Event) -> int | None:
 
 
 def _path(frames: list[_Frame]) -> KeyPath:
-    return tuple(frame.key for frame in frames if frame.key is not None)
+    # The first few levels say where; thirty more "[0]" would not say more.
+    return tuple(frame.key for frame in frames if frame.key is not None)[:4]
 
 
 def check_shape(text: str, file: str) -> None:
     """Refuse a document that nests deeper than MAX_DEPTH or has a list or mapping longer than
-    MAX_ITEMS, from the parser's events (before anything is built or recursed into)."""
+    MAX_ITEMS, from the parser's events (before anything is built or recursed into).
+
+    libyaml refuses deep nesting on its own, with no place to point at; the pure-Python
+    parser (lazy and iterative) then finds the level and the key.
+    """
+    try:
+        _check_shape(text, file, FAST_LOADER)
+    except yaml.YAMLError:
+        if FAST_LOADER is yaml.SafeLoader:
+            raise
+        _check_shape(text, file, yaml.SafeLoader)
+
+
+def _check_shape(text: str, file: str, loader: Any) -> None:
     frames: list[_Frame] = []
     node_events = (yaml.ScalarEvent, yaml.AliasEvent, yaml.MappingStartEvent,
                    yaml.SequenceStartEvent)
-    for event in yaml.parse(text, Loader=FAST_LOADER):
+    for event in yaml.parse(text, Loader=loader):
         if isinstance(event, node_events) and frames:
             frame = frames[-1]
             if not frame.mapping:
@@ -116,6 +130,11 @@ def check_shape(text: str, file: str) -> None:
             frames.pop()
 
 
+class _Recursive(Exception):
+    def __init__(self, node: yaml.Node) -> None:
+        self.node = node
+
+
 @dataclass
 class _Expansion:
     """Size and depth of a node graph with every alias expanded, memoised per node."""
@@ -139,12 +158,12 @@ class _Expansion:
                 self.sizes[id(node)] = (min(size, MAX_NODES + 1), depth)
                 continue
             if id(node) in in_progress:
-                raise ValueError("recursive")
+                raise _Recursive(node)
             in_progress.add(id(node))
             stack.append((node, True))
             for child in children:
                 if id(child) in in_progress:
-                    raise ValueError("recursive")
+                    raise _Recursive(child)
                 stack.append((child, False))
         return self.sizes[id(root)]
 
@@ -157,19 +176,39 @@ def _children(node: yaml.Node) -> list[yaml.Node]:
     return []
 
 
+def _largest_part(node: yaml.Node, sizes: dict[int, tuple[int, int]]
+                  ) -> tuple[KeyPath, int | None]:
+    """The key path (through mappings) to the part of the document that expands too far."""
+    path: KeyPath = ()
+    line = node.start_mark.line + 1 if node.start_mark is not None else None
+    while isinstance(node, yaml.MappingNode):
+        heavy = [(sizes[id(value)], key, value) for key, value in node.value
+                 if sizes[id(value)][0] > MAX_NODES or sizes[id(value)][1] > MAX_DEPTH]
+        if not heavy:
+            break
+        _, key, node = max(heavy, key=lambda item: item[0])
+        path = (*path, str(key.value))
+        line = key.start_mark.line + 1 if key.start_mark is not None else line
+    return path, line
+
+
 def check_expansion(node: yaml.Node, file: str) -> None:
     """Refuse aliases that expand past MAX_NODES values or MAX_DEPTH levels, or that refer
     to the node they are part of."""
+    expansion = _Expansion()
     try:
-        size, depth = _Expansion().measure(node)
-    except ValueError:
+        size, depth = expansion.measure(node)
+    except _Recursive as recursive:
+        mark = recursive.node.start_mark
         raise InputError(
             "an alias refers to the list or mapping that contains it", file=file,
+            line=mark.line + 1 if mark is not None else None,
             fix="remove the alias (*name) inside its own anchor (&name)",
         ) from None
     if size > MAX_NODES or depth > MAX_DEPTH + 1:  # + 1: the scalars at the leaves
+        path, line = _largest_part(node, expansion.sizes)
         raise InputError(
             f"expands to more than {MAX_NODES} values or {MAX_DEPTH} levels through its "
-            "aliases (*name)", file=file,
+            "aliases (*name)", file=file, key=path, line=line,
             fix="write the values out, or use each alias fewer times",
         )

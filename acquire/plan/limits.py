@@ -23,6 +23,7 @@ from typing import Any
 from acquire.errors import InputError, KeyPath
 from acquire.inputs.load import LoadedProtocol, LoadedRig
 from acquire.inputs.protocol import CURRENT_AXIS
+from acquire.inputs.resistance_check import sheet_resistance_warning
 from acquire.inputs.stack import StackGeometry
 from drivers.command_limits import CommandLimits, past
 from drivers.dialect import dialect_for
@@ -214,6 +215,9 @@ def check_limits(loaded: LoadedProtocol, rig: LoadedRig | None) -> LimitReport:
         warnings.extend(load.warnings)
         compliance = load.compliance_V
     _check_sample_axes(loaded)
+    sheet_warning = sheet_resistance_warning(protocol)
+    if sheet_warning is not None:
+        warnings.append(sheet_warning)
     if rig is not None:
         for amplitude in amplitudes:
             current = mode.peak_current(protocol, amplitude)

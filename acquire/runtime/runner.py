@@ -16,6 +16,7 @@ from dataclasses import dataclass
 from typing import Any, TypeVar
 
 from acquire.inputs.load import LoadedProtocol, LoadedRig
+from acquire.inputs.resistance_check import first_point_warning
 from acquire.inputs.stack import StackGeometry
 from acquire.modes.base import MeasureContext, PointProblem
 from acquire.plan.schedule import Measure, Move, Point, Step, iterate_steps, plans_from
@@ -264,6 +265,9 @@ class Runner:
             self.points.extend(self.point_rows(outcome))
             self._commit_point()
             self.on_point(outcome)
+            if note := first_point_warning(self.loaded, self.rig, step.point.number,
+                                           outcome.result):
+                log.warning(note)
 
     def _commit_point(self) -> None:
         now = time.monotonic()
