@@ -19,7 +19,7 @@ from acquire.errors import InputError
 from acquire.inputs.load import load_protocol, load_rig
 from acquire.inputs.resistance_check import first_point_warning, sheet_resistance_warning
 from acquire.plan.limits import check_limits, current_high
-from tests.conftest import SIMULATED_RIG
+from tests.conftest import SIMULATED_RIG, CliResult
 
 MakeProtocol = Callable[..., Path]
 REL = 1e-9
@@ -115,3 +115,23 @@ def test_the_first_point_is_compared_with_the_model(
         assert "vxx" in warning
     assert first_point_warning(loaded, rig, 1, result) is None  # the first point only
     assert first_point_warning(loaded, rig, 0, None) is None  # a skipped point
+
+
+# --- one rounding rule: a limit written like the value admits it -------------------------------
+
+
+@pytest.mark.parametrize("value, limit", [("20 kOe", "20 kOe"), ("2 T", "20 kG"),
+                                          ("20 kOe", "2 T"), ("15.9154943092 kA/m", "0.02 T")])
+def test_a_limit_admits_the_same_field_written_alike(
+    value: str, limit: str, make_protocol: MakeProtocol, write: Callable[[str, str], Path],
+    cli: Callable[[list[str]], CliResult],
+) -> None:
+    # 1 Oe = 1 G = 1e-4 T exactly (CGS definitions, SI Brochure 8th ed., Table 9); 15.9154943092
+    # kA/m x mu0 (CODATA) = 0.0200000000 T to 1e-11, inside the round-off rule (1e-9 relative)
+    rig = write("rig.yaml", SIMULATED_RIG.read_text(encoding="utf-8").replace(
+        "limits: {field: 2 T,", f"limits: {{field: {limit},"))
+    path = make_protocol(f"{{axis: field, values: [-{value}, {value}]}}",
+                         "{axis: current, values: [1 mA]}",
+                         limits=f"{{current: 5 mA, field: {limit}}}")
+    result = cli(["check", str(path), "--rig", str(rig)])
+    assert result.code == 0, result.err
