@@ -7,13 +7,13 @@ Axes: x is the current direction, y the other in-plane direction, z the film nor
 
 from __future__ import annotations
 
-import dataclasses
 import math
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 
+from sim_instruments.oscillator import oscillator_factor
+from sim_instruments.sample_parameters import SampleParameters
 from sim_instruments.stoner_wohlfarth import (
     ROTATION_PLANES,
     FilmAnisotropy,
@@ -21,121 +21,33 @@ from sim_instruments.stoner_wohlfarth import (
     Vec3,
 )
 
-MODEL_VERSION = "1"
+MODEL_VERSION = "2"
 PROBES: tuple[str, ...] = ("longitudinal", "transverse")
 # Exact since the 2019 SI redefinition; kept literal so the model needs numpy only.
 BOLTZMANN_J_PER_K = 1.380649e-23
+ELEMENTARY_CHARGE_C = 1.602176634e-19  # exact since 2019 too
 
-
-# The demo device: an invented scenario. CoFeB 2 nm (150 uohm cm) / W 5 nm (120 uohm cm, the
-# carrier), channel 40 um x 4 um between the voltage probes. Its resistance and the carrier's
-# share of the current follow from the parallel-resistor model (acquire.inputs.stack, tested
-# against these numbers): sheet conductances 1.3333 mS + 4.1667 mS, R0 = 10 squares / 5.5 mS.
-DEMO_LENGTH_M = 40e-6
-DEMO_WIDTH_M = 4e-6
-DEMO_RESISTANCE_OHM = 1e4 / 5.5
-DEMO_CARRIER_FRACTION = 25.0 / 33.0
-DEMO_CARRIER_THICKNESS_M = 5e-9
-
-# Quantities that must be > 0 for the equations to mean anything.
-_POSITIVE = (
-    "resistance_ohm",
-    "reference_temperature_K",
-    "umr_magnon_field_T",
-    "length_m",
-    "width_m",
-    "carrier_thickness_m",
-    "carrier_fraction",
-)
-_NON_NEGATIVE = (
-    "thermal_resistance_K_per_W",
-    "noise_density_V_per_rtHz",
-    "anisotropy_field_T",
-    "umr_magnon_T0_K",
-)
+__all__ = [
+    "MODEL_VERSION", "PROBES", "BilayerSample", "ExpectedPoint", "SampleParameters",
+    "UnidirectionalParts",
+]
 
 
 @dataclass(frozen=True)
-class SampleParameters:
-    """True parameters of the simulated device. Defaults are the invented demo device."""
+class UnidirectionalParts:
+    """The odd-in-current resistance of one probe pair split by origin, ohm, at |I|.
 
-    # Channel and stack
-    resistance_ohm: float = DEMO_RESISTANCE_OHM  # R0: T_ref, zero current, m along z
-    length_m: float = DEMO_LENGTH_M
-    width_m: float = DEMO_WIDTH_M
-    carrier_thickness_m: float = DEMO_CARRIER_THICKNESS_M
-    carrier_fraction: float = DEMO_CARRIER_FRACTION
-    # Temperature
-    reference_temperature_K: float = 300.0
-    temperature_coefficient_per_K: float = 5e-4  # (dR/dT) / R0 at T_ref
-    thermal_resistance_K_per_W: float = 1500.0  # Joule heating: dT = R_th * I^2 * R
-    # Even magnetoresistance and Hall
-    amr_ratio: float = 5e-4  # R(m||x)/R(m||z) - 1
-    smr_ratio: float = 1e-3  # 1 - R(m||y)/R(m||z)
-    planar_hall_ohm: float = 0.14  # amplitude of sin(2 phi) in R_xy
-    anomalous_hall_ohm: float = 1.5  # R_xy at m = +z
-    transverse_misalignment_fraction: float = 1e-3  # share of R_xx seen by the Hall pair
-    # Unidirectional magnetoresistance, ratio to R0 per unit carrier current density
-    umr_ratio_per_A_m2: float = 2e-17  # field-independent (spin-dependent) part
-    umr_magnon_ratio_per_A_m2: float = 3e-17  # magnon part at T_ref, B -> 0
-    umr_magnon_field_T: float = 2.0  # B_m in 1 / (1 + |B| / B_m)
-    umr_magnon_T0_K: float = 60.0  # floor of (T + T0) / (T_ref + T0) as T -> 0
-    spin_hall_sign: int = -1  # sign of the heavy metal's spin Hall angle (W: -1, Pt: +1)
-    # Thermal and instrumental voltages
-    thermal_V_per_A2: float = 0.4  # anomalous-Nernst-like: V = c * I^2 * m_y
-    thermoelectric_offset_V: float = 10e-6  # longitudinal pair, independent of current
-    transverse_offset_V: float = 1e-6  # transverse pair
-    drift_V_per_s: float = 2e-10  # linear in time, both pairs
-    noise_density_V_per_rtHz: float = 20e-9  # voltmeter input noise, one-sided
-    # Magnetisation (Stoner-Wohlfarth)
-    anisotropy_field_T: float = 5e-3  # uniaxial in-plane, mu0*H_k
-    demag_field_T: float = 0.8  # mu0*M_eff; > 0 keeps m in plane
-    easy_axis_deg: float = 0.0  # in-plane, from +x towards +y
+    spin_ohm: the spin-dependent part linear in j (zeta(B, T) j); threshold_ohm: the intrinsic
+    superlinear part beyond J_c; thermal_ohm: the anomalous-Nernst-like part of Joule heating.
+    """
 
-    def __post_init__(self) -> None:
-        for f in dataclasses.fields(self):
-            value = getattr(self, f.name)
-            if f.name == "spin_hall_sign":
-                if value not in (1, -1) or isinstance(value, bool):
-                    raise ValueError(f"spin_hall_sign must be +1 or -1, got {value!r}")
-                object.__setattr__(self, f.name, int(value))
-                continue
-            if isinstance(value, bool) or not isinstance(value, (int, float)):
-                raise ValueError(f"{f.name} must be a number, got {value!r}")
-            if not math.isfinite(value):
-                raise ValueError(f"{f.name} must be finite, got {value!r}")
-            # Floats throughout so as_dict() is uniform JSON whatever the caller passed.
-            object.__setattr__(self, f.name, float(value))
-        for key in _POSITIVE:
-            if not getattr(self, key) > 0.0:
-                raise ValueError(f"{key} must be > 0, got {getattr(self, key)!r}")
-        for key in _NON_NEGATIVE:
-            if not getattr(self, key) >= 0.0:
-                raise ValueError(f"{key} must be >= 0, got {getattr(self, key)!r}")
-        if self.carrier_fraction > 1.0:
-            raise ValueError(f"carrier_fraction must be <= 1, got {self.carrier_fraction!r}")
+    spin_ohm: float
+    threshold_ohm: float
+    thermal_ohm: float
 
-    @classmethod
-    def field_names(cls) -> tuple[str, ...]:
-        return tuple(f.name for f in dataclasses.fields(cls))
-
-    @classmethod
-    def with_overrides(cls, **values: Any) -> SampleParameters:
-        """Parameters by keyword (the channel from a protocol, the rest from a rig's
-        `simulation:`); an unknown name raises ValueError naming it and the valid ones."""
-        valid = cls.field_names()
-        for key in values:
-            if key not in valid:
-                raise ValueError(f"unknown sample parameter {key!r}; valid: {', '.join(valid)}")
-        return cls(**values)
-
-    def as_dict(self) -> dict[str, float | int | str]:
-        """Every parameter by name: the JSON-ready truth of a simulated run."""
-        return dataclasses.asdict(self)
-
-    def carrier_current_density(self, current_A: float) -> float:
-        """Current density in the carrier layer, A/m^2 (signed like the current)."""
-        return current_A * self.carrier_fraction / (self.width_m * self.carrier_thickness_m)
+    @property
+    def total_ohm(self) -> float:
+        return self.spin_ohm + self.threshold_ohm + self.thermal_ohm
 
 
 @dataclass(frozen=True)
@@ -200,6 +112,15 @@ class BilayerSample:
         p = self._params
         return 1.0 + p.amr_ratio * m[0] * m[0] - p.smr_ratio * m[1] * m[1]
 
+    def _thermal_factor(self, device_K: float) -> float:
+        p = self._params
+        factor = 1.0 + p.temperature_coefficient_per_K * (device_K - p.reference_temperature_K)
+        if factor <= 0.0:
+            raise ValueError(
+                f"resistance not positive at {device_K!r} K: temperature coefficient too large"
+            )
+        return factor
+
     def device_temperature_K(self, current_A: float, temperature_K: float) -> float:
         """Bath temperature plus Joule heating, solved self-consistently.
 
@@ -221,72 +142,102 @@ class BilayerSample:
 
     def _longitudinal_ohm(self, device_K: float) -> float:
         p = self._params
-        thermal = 1.0 + p.temperature_coefficient_per_K * (device_K - p.reference_temperature_K)
-        r = p.resistance_ohm * thermal * self._magnetic_factor(self.magnetisation)
-        if r <= 0.0:
-            raise ValueError(
-                f"resistance not positive at {device_K!r} K: temperature coefficient too large"
-            )
-        return r
+        return p.resistance_ohm * self._thermal_factor(device_K) * self._magnetic_factor(
+            self.magnetisation
+        )
 
-    def _transverse_ohm(self, longitudinal_ohm: float) -> float:
+    def _transverse_ohm(self, device_K: float, longitudinal_ohm: float) -> float:
+        # The planar Hall term is the off-diagonal part of the same anisotropic resistivity
+        # as R_xx's AMR and SMR, so it follows R_xx's temperature factor; the anomalous Hall
+        # term is taken as temperature-independent.
         p = self._params
         mx, my, mz = self.magnetisation
+        planar = p.planar_hall_amplitude_ohm * self._thermal_factor(device_K) * 2.0 * mx * my
         return (
-            p.planar_hall_ohm * 2.0 * mx * my
+            planar
             + p.anomalous_hall_ohm * mz
             + p.transverse_misalignment_fraction * longitudinal_ohm
         )
 
     # --- odd part --------------------------------------------------------------------
 
-    def umr_zeta_per_A_m2(self, device_K: float) -> float:
-        """zeta(B, T): unidirectional resistance over R0 per unit carrier current density."""
+    def magnon_temperature_factor(self, device_K: float) -> float:
+        """<E>(T) / <E>(T_ref) of an oscillator of temperature T_w (zero-point included)."""
         p = self._params
-        thermal = (device_K + p.umr_magnon_T0_K) / (p.reference_temperature_K + p.umr_magnon_T0_K)
-        field = 1.0 / (1.0 + abs(self.field_T) / p.umr_magnon_field_T)
-        return p.umr_ratio_per_A_m2 + p.umr_magnon_ratio_per_A_m2 * thermal * field
+        return oscillator_factor(p.umr_magnon_oscillator_K, device_K, p.reference_temperature_K)
 
-    def _unidirectional_ohm(self, probe: str, current_A: float, device_K: float) -> float:
+    def umr_zeta_per_A_m2(self, device_K: float) -> float:
+        """zeta(B, T): linear unidirectional resistance over R0 per unit carrier current
+        density, at the present field."""
+        p = self._params
+        field = 1.0 / (1.0 + abs(self.field_T) / p.umr_magnon_field_T)
+        magnon = p.umr_magnon_ratio_per_A_m2 * self.magnon_temperature_factor(device_K) * field
+        return p.umr_ratio_per_A_m2 + magnon
+
+    def _parts(self, probe: str, current_A: float, device_K: float) -> UnidirectionalParts:
         """Odd-in-current resistance for a signed current (so current * this is even)."""
         p = self._params
         mx, my, _ = self.magnetisation
         if probe == "transverse":
-            # The Nernst field E ~ grad(T) x m: along y for m along x, over the width.
-            return p.thermal_V_per_A2 * (p.width_m / p.length_m) * current_A * mx
+            # The Nernst field E ~ grad(T) x m has E_y ~ +m_x where E_x ~ -m_y (MODEL.md):
+            # the Hall pair sees it over the width w, the longitudinal pair over L.
+            thermal = -p.thermal_V_per_A2 * (p.width_m / p.length_m) * current_A * mx
+            return UnidirectionalParts(0.0, 0.0, thermal)
         j = p.carrier_current_density(current_A)
-        umr = p.spin_hall_sign * p.resistance_ohm * self.umr_zeta_per_A_m2(device_K) * j * my
-        return umr + p.thermal_V_per_A2 * current_A * my
+        scale = p.spin_hall.sign * p.resistance_ohm * my
+        spin = scale * self.umr_zeta_per_A_m2(device_K) * j
+        beyond = max(0.0, abs(j) - p.umr_threshold_density_A_m2)
+        threshold = scale * p.umr_threshold_ratio_per_A_m2 * math.copysign(beyond, j)
+        return UnidirectionalParts(spin, threshold, p.thermal_V_per_A2 * current_A * my)
+
+    def unidirectional_parts(
+        self, probe: str, current_A: float, temperature_K: float
+    ) -> UnidirectionalParts:
+        """The noise-free unidirectional resistance at |current_A| split by origin; the sum
+        is expected(...).unidirectional_ohm."""
+        _check_probe(probe)
+        amplitude = abs(current_A)
+        return self._parts(probe, amplitude, self.device_temperature_K(amplitude, temperature_K))
 
     # --- readings --------------------------------------------------------------------
 
     def _even_ohm(self, probe: str, device_K: float) -> float:
         longitudinal = self._longitudinal_ohm(device_K)
-        return longitudinal if probe == "longitudinal" else self._transverse_ohm(longitudinal)
+        if probe == "longitudinal":
+            return longitudinal
+        return self._transverse_ohm(device_K, longitudinal)
 
     def expected(self, probe: str, current_A: float, temperature_K: float) -> ExpectedPoint:
         """Noise-free values at current amplitude |current_A| for the present state.
 
         resistance_ohm = (R(+I) + R(-I))/2, unidirectional_ohm = (R(+I) - R(-I))/2, no
-        offset, drift or noise: the reduction of DESIGN.md applied to the model's truth.
+        offset, drift or noise: what a current-reversal reduction recovers.
         """
         _check_probe(probe)
         amplitude = abs(current_A)
         device_K = self.device_temperature_K(amplitude, temperature_K)
         return ExpectedPoint(
             resistance_ohm=self._even_ohm(probe, device_K),
-            unidirectional_ohm=self._unidirectional_ohm(probe, amplitude, device_K),
+            unidirectional_ohm=self._parts(probe, amplitude, device_K).total_ohm,
         )
 
     def noise_sigma_V(
-        self, probe: str, current_A: float, temperature_K: float, integration_s: float
+        self,
+        probe: str,
+        current_A: float,
+        temperature_K: float,
+        integration_s: float,
+        autozero: bool = False,
     ) -> float:
         """Standard deviation of one reading, volts.
 
         A reading averages for integration_s; its equivalent noise bandwidth is
         df = 1 / (2 * integration_s). Voltmeter noise and the sample's Johnson-Nyquist
         noise (at the device temperature, through the resistance between the probes)
-        are independent, so their powers add.
+        are independent, so their powers add. With autozero the voltmeter subtracts a zero
+        reading of the same length taken on its internal short: that adds the voltmeter's
+        input noise once more (not the sample's), so the meter's share of the variance
+        doubles.
         """
         _check_probe(probe)
         if not (math.isfinite(integration_s) and integration_s > 0.0):
@@ -299,7 +250,8 @@ class BilayerSample:
             longitudinal if probe == "longitudinal" else longitudinal * p.width_m / p.length_m
         )
         bandwidth_Hz = 1.0 / (2.0 * integration_s)
-        density2 = p.noise_density_V_per_rtHz**2 + 4.0 * BOLTZMANN_J_PER_K * device_K * source_ohm
+        meter2 = p.noise_density_V_per_rtHz**2 * (2.0 if autozero else 1.0)
+        density2 = meter2 + 4.0 * BOLTZMANN_J_PER_K * device_K * source_ohm
         return math.sqrt(density2 * bandwidth_Hz)
 
     def voltage(
@@ -309,21 +261,40 @@ class BilayerSample:
         temperature_K: float,
         time_s: float,
         integration_s: float,
+        autozero: bool = False,
     ) -> float:
-        """One voltmeter reading at signed current_A, bath temperature and run time."""
+        """One voltmeter reading at signed current_A, bath temperature and run time;
+        integration_s is the reading's own integration (an autozero's zero comes on top)."""
         _check_probe(probe)
         p = self._params
         device_K = self.device_temperature_K(current_A, temperature_K)
-        resistance = self._even_ohm(probe, device_K) + self._unidirectional_ohm(
-            probe, current_A, device_K
+        resistance = (
+            self._even_ohm(probe, device_K) + self._parts(probe, current_A, device_K).total_ohm
         )
         offset = p.thermoelectric_offset_V if probe == "longitudinal" else p.transverse_offset_V
         clean = offset + p.drift_V_per_s * time_s + current_A * resistance
-        sigma = self.noise_sigma_V(probe, current_A, temperature_K, integration_s)
+        sigma = self.noise_sigma_V(probe, current_A, temperature_K, integration_s, autozero)
         return clean + sigma * float(self._rng.standard_normal())
 
     def truth(self) -> dict[str, object]:
-        out: dict[str, object] = dict(self._params.as_dict())
+        """Every parameter with the values the model used (the spin Hall sign and planar
+        Hall amplitude resolved, with their sources), plus derived numbers an analysis
+        compares with. Built again with SampleParameters(**{parameters}), it simulates the
+        same device."""
+        p = self._params
+        out: dict[str, object] = dict(p.as_dict())
+        spin_hall = p.spin_hall
+        out["spin_hall_sign"] = spin_hall.sign
+        out["spin_hall_sign_source"] = spin_hall.source
+        out["planar_hall_ohm"] = p.planar_hall_amplitude_ohm
+        out["planar_hall_source"] = p.planar_hall_source
+        out["carrier_density_per_A_A_m2"] = p.carrier_density_per_A
+        out["umr_threshold_current_A"] = p.umr_threshold_density_A_m2 / p.carrier_density_per_A
+        out["umr_magnon_oscillator_energy_meV"] = (
+            BOLTZMANN_J_PER_K * p.umr_magnon_oscillator_K / ELEMENTARY_CHARGE_C * 1e3
+        )
+        out["umr_magnon_factor_at_0K"] = self.magnon_temperature_factor(0.0)
+        out["thermal_transverse_V_per_A2"] = -p.thermal_V_per_A2 * p.width_m / p.length_m
         out["rotation_plane"] = self._plane
         out["model_version"] = MODEL_VERSION
         out["seed"] = self._seed

@@ -78,11 +78,15 @@ def test_a_reading_lets_its_integration_time_pass() -> None:
         # 2 power-line cycles at 50 Hz = 40 ms, doubled by autozero, plus the default
         # 2 ms transaction latency of a rig instrument.
         assert clock.now() - start == pytest.approx(0.082, rel=1e-12)
-        assert sample.readings[-1]["integration_s"] == pytest.approx(0.080, rel=1e-12)
+        # The signal itself still integrates 40 ms; the zero reading adds noise, not averaging.
+        assert sample.readings[-1]["integration_s"] == pytest.approx(0.040, rel=1e-12)
+        assert sample.readings[-1]["autozero"] is True
         meter.configure(1.0, None, False)
         start = clock.now()
         meter.read()
         assert clock.now() - start == pytest.approx(0.022, rel=1e-12)
+        assert sample.readings[-1]["integration_s"] == pytest.approx(0.020, rel=1e-12)
+        assert sample.readings[-1]["autozero"] is False
 
 
 def test_each_voltmeter_reads_its_probe() -> None:

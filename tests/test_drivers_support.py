@@ -33,10 +33,10 @@ class OhmicSample:
         self.placements.append((field_T, angle_deg))
 
     def voltage(self, probe: str, current_A: float, temperature_K: float, time_s: float,
-                integration_s: float) -> float:
+                integration_s: float, autozero: bool = False) -> float:
         self.readings.append({"probe": probe, "current_A": current_A,
                               "temperature_K": temperature_K, "time_s": time_s,
-                              "integration_s": integration_s})
+                              "integration_s": integration_s, "autozero": autozero})
         return self.offset_V + current_A * self.resistance_ohm
 
     def expected(self, probe: str, current_A: float, temperature_K: float) -> Expected:

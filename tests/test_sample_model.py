@@ -90,7 +90,18 @@ def test_parameters_and_truth_are_json_ready() -> None:
     assert truth["rotation_plane"] == "zy"
     assert truth["model_version"]
     assert truth["seed"] == 7
-    assert truth["spin_hall_sign"] == SampleParameters().spin_hall_sign
+    # The demo device's carrier is W: the table's negative sign, and the record says so.
+    assert truth["spin_hall_sign"] == -1
+    assert truth["spin_hall_sign_source"] == "table: W"
+    # The parameters of the truth rebuild the same device: same readings from the same seed.
+    again = BilayerSample(
+        SampleParameters(**{k: v for k, v in truth.items() if k in names}), "zy", seed=7
+    )
+    for model in (sample, again):
+        model.apply_field(0.3, 60.0)
+    assert [again.voltage("longitudinal", 3e-3, 300.0, 0.0, 0.02) for _ in range(3)] == [
+        sample.voltage("longitudinal", 3e-3, 300.0, 0.0, 0.02) for _ in range(3)
+    ]
 
 
 # --- even part -----------------------------------------------------------------------
@@ -268,6 +279,7 @@ def test_readings_reduce_to_the_expected_point() -> None:
 def test_magnon_part_falls_with_field_and_grows_with_temperature() -> None:
     # The magnon population is suppressed by field and grows with temperature while the
     # UMR stays finite at T -> 0 (common practice for ferromagnet / heavy-metal bilayers).
+    # Its exact temperature law is checked against the oscillator in test_sample_physics.py.
     sample = _sample(umr_ratio_per_A_m2=0.0, thermal_V_per_A2=0.0)
     by_field = []
     for field_T in (0.05, 0.5, 1.0, 2.0, 4.0):
@@ -275,7 +287,8 @@ def test_magnon_part_falls_with_field_and_grows_with_temperature() -> None:
         by_field.append(abs(sample.expected("longitudinal", 1e-4, 300.0).unidirectional_ohm))
     assert all(a > b for a, b in itertools.pairwise(by_field))
     by_temperature = [
-        abs(sample.expected("longitudinal", 1e-4, t).unidirectional_ohm) for t in (0.0, 10.0, 300.0)
+        abs(sample.expected("longitudinal", 1e-4, t).unidirectional_ohm)
+        for t in (0.0, 100.0, 300.0)
     ]
     assert 0.0 < by_temperature[0] < by_temperature[1] < by_temperature[2]
 

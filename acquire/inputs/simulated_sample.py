@@ -24,11 +24,14 @@ def simulated_sample(protocol: Any, simulation: dict[str, Any], source: SourceMa
     layers = [LayerShare(layer.name, layer.thickness, layer.resistivity, layer is sample.carrier)
               for layer in sample.layers]
     length, width = sample.channel.length, sample.channel.width
+    carrier = carrier_index(layers)
     channel: dict[str, object] = {
         "resistance_ohm": channel_resistance(length, width, layers),
         "length_m": length, "width_m": width,
-        "carrier_thickness_m": layers[carrier_index(layers)].thickness_m,
-        "carrier_fraction": current_fractions(layers)[carrier_index(layers)],
+        "carrier_thickness_m": layers[carrier].thickness_m,
+        "carrier_fraction": current_fractions(layers)[carrier],
+        # The model takes the spin Hall sign from the carrier's material unless the rig sets it.
+        "carrier_material": layers[carrier].name,
     }
     model_settings = {key: value for key, value in simulation.items() if key != OWN_DRIVERS}
     try:

@@ -7,6 +7,7 @@ from collections.abc import Callable
 from dataclasses import dataclass
 from typing import Any
 
+from drivers.roles.voltmeter import AUTOZERO_TIME_FACTOR
 from sim_instruments.world import SimulatedWorld, positive
 
 DEFAULT_NPLC = 1.0
@@ -45,20 +46,25 @@ class SimulatedVoltmeter:
         self.state.autozero = on
 
     def integration_s(self) -> float:
-        # Autozero takes a zero reading for every reading: twice the integration time.
-        state = self.state
-        return state.nplc / self.world.mains_frequency_Hz * (2.0 if state.autozero else 1.0)
+        """The reading's own integration: what averages the signal's noise."""
+        return self.state.nplc / self.world.mains_frequency_Hz
+
+    def reading_time_s(self) -> float:
+        # Autozero takes a zero reading of the same length for every reading: it doubles the
+        # time, and its noise adds to the reading's (the sample model's `autozero`), so a
+        # longer reading does not mean less noise.
+        factor = AUTOZERO_TIME_FACTOR if self.state.autozero else 1.0
+        return factor * self.integration_s()
 
     def read_voltage(self) -> float:
         world, state = self.world, self.state
         now = world.clock.now()
         world.place_sample()
-        integration = self.integration_s()
         volts = world.sample.voltage(
             state.probe, world.state("current_A"), world.state("temperature_K"), now,
-            integration,
+            self.integration_s(), autozero=state.autozero,
         )
-        world.clock.sleep(integration + state.latency_s)
+        world.clock.sleep(self.reading_time_s() + state.latency_s)
         if state.range_V is not None and abs(volts) > state.range_V * OVERRANGE_FRACTION:
             return SCPI_OVERRANGE_V
         return volts
