@@ -82,6 +82,9 @@ class BilayerSample:
             params.anisotropy_field_T, params.demag_field_T, params.easy_axis_deg
         )
         self._spin = Macrospin(anisotropy, rotation_plane)
+        # Resolved once: the name lookup and the geometry do not change during a run.
+        self._spin_hall_sign = params.spin_hall.sign
+        self._planar_hall_ohm = params.planar_hall_amplitude_ohm
 
     @property
     def params(self) -> SampleParameters:
@@ -152,7 +155,7 @@ class BilayerSample:
         # term is taken as temperature-independent.
         p = self._params
         mx, my, mz = self.magnetisation
-        planar = p.planar_hall_amplitude_ohm * self._thermal_factor(device_K) * 2.0 * mx * my
+        planar = self._planar_hall_ohm * self._thermal_factor(device_K) * 2.0 * mx * my
         return (
             planar
             + p.anomalous_hall_ohm * mz
@@ -184,7 +187,7 @@ class BilayerSample:
             thermal = -p.thermal_V_per_A2 * (p.width_m / p.length_m) * current_A * mx
             return UnidirectionalParts(0.0, 0.0, thermal)
         j = p.carrier_current_density(current_A)
-        scale = p.spin_hall.sign * p.resistance_ohm * my
+        scale = self._spin_hall_sign * p.resistance_ohm * my
         spin = scale * self.umr_zeta_per_A_m2(device_K) * j
         beyond = max(0.0, abs(j) - p.umr_threshold_density_A_m2)
         threshold = scale * p.umr_threshold_ratio_per_A_m2 * math.copysign(beyond, j)
