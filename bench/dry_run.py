@@ -23,7 +23,7 @@ extends_anywhere: true
 name: dry-run benchmark
 loops:
   - {{axis: field, values: [0.5 T]}}
-  - {{axis: angle, start: 0 deg, stop: {stop} deg, step: 5 deg, snake: true}}
+  - {{axis: angle, start: 0 deg, stop: {stop} deg, step: 5 deg, alternate_direction: true}}
   - {{axis: current, values: [0.5 mA, 1 mA, 1.5 mA, 2 mA, 2.5 mA, 3 mA]}}
 """
 

@@ -123,7 +123,7 @@ def test_temperature_changes_at_the_controller_rate(
 
 def test_counts_and_peak_density(make_protocol: MakeProtocol) -> None:
     path = make_protocol("{axis: field, values: [0.2 T, 1 T]}",
-                         "{axis: angle, start: 0 deg, stop: 350 deg, step: 10 deg, snake: true}",
+                         "{axis: angle, start: 0 deg, stop: 350 deg, step: 10 deg, alternate_direction: true}",
                          "{axis: current, values: [1 mA, 2 mA, 3 mA]}",
                          readings="{per_step: 2, channels: [vxx, vxy]}",
                          alternation='{pattern: "+0-", cycles: 4}')

@@ -1,4 +1,5 @@
-"""Loop values: explicit, start/stop/step, start/stop/num, log, there and back, snake, numbering."""
+"""Loop values: explicit, start/stop/step, start/stop/num, log, there and back, alternate
+direction, numbering."""
 
 from __future__ import annotations
 
@@ -128,34 +129,36 @@ def test_there_and_back_needs_two_values() -> None:
     assert caught.value.key == "return"
 
 
-# --- snake and numbering, through the schedule ------------------------------------------------
+# --- alternate direction and numbering, through the schedule ----------------------------------
 
 
 def angles_of(points: list[Point]) -> list[float | None]:
     return [point.setpoint("angle") for point in points]
 
 
-def test_snake_reverses_on_alternate_passes_and_never_rewinds() -> None:
+def test_alternate_direction_reverses_on_alternate_passes_and_never_rewinds() -> None:
     field = LoopPlan("field", (0.1, 0.2, 0.3))
     current = LoopPlan("current", (1e-3,))
-    snake = list(iterate_points([field, LoopPlan("angle", (0, 10, 20, 30), snake=True), current]))
-    assert angles_of(snake) == [0, 10, 20, 30, 30, 20, 10, 0, 0, 10, 20, 30]
-    steps = [abs(b - a) for a, b in pairwise(angles_of(snake))]
+    angle = LoopPlan("angle", (0, 10, 20, 30), alternate_direction=True)
+    alternating = list(iterate_points([field, angle, current]))
+    assert angles_of(alternating) == [0, 10, 20, 30, 30, 20, 10, 0, 0, 10, 20, 30]
+    steps = [abs(b - a) for a, b in pairwise(angles_of(alternating))]
     assert max(steps) <= 10  # the rotator only ever moves one step
 
     plain = list(iterate_points([field, LoopPlan("angle", (0, 10, 20, 30)), current]))
     assert max(abs(b - a) for a, b in pairwise(angles_of(plain))) == 30
 
 
-def test_snake_counts_passes_across_all_outer_loops() -> None:
+def test_alternate_direction_counts_passes_across_all_outer_loops() -> None:
     # Two temperatures x two fields = four passes of the angle loop: fwd, rev, fwd, rev.
     plans = [LoopPlan("temperature", (10, 20)), LoopPlan("field", (0.1, 0.2)),
-             LoopPlan("angle", (0, 90, 180), snake=True), LoopPlan("current", (1e-3,))]
+             LoopPlan("angle", (0, 90, 180), alternate_direction=True),
+             LoopPlan("current", (1e-3,))]
     assert angles_of(list(iterate_points(plans))) == [0, 90, 180, 180, 90, 0] * 2
 
 
-def test_snake_of_a_middle_loop_moves_the_inner_loop_with_it() -> None:
-    plans = [LoopPlan("field", (0.1, 0.2)), LoopPlan("angle", (0, 90), snake=True),
+def test_alternate_direction_of_a_middle_loop_moves_the_inner_loop_with_it() -> None:
+    plans = [LoopPlan("field", (0.1, 0.2)), LoopPlan("angle", (0, 90), alternate_direction=True),
              LoopPlan("current", (1e-3, 2e-3))]
     pairs = [(p.setpoint("field"), p.setpoint("angle"), p.current_A) for p in iterate_points(plans)]
     assert pairs == [
@@ -167,7 +170,7 @@ def test_snake_of_a_middle_loop_moves_the_inner_loop_with_it() -> None:
 def test_points_from_a_protocol_file(make_protocol: Callable[..., Path]) -> None:
     path = make_protocol(
         "{axis: field, values: [0.2 T, 1 T]}",
-        "{axis: angle, start: 0 deg, stop: 20 deg, step: 10 deg, snake: true}",
+        "{axis: angle, start: 0 deg, stop: 20 deg, step: 10 deg, alternate_direction: true}",
         "{axis: current, values: [1 mA, 2 mA]}",
     )
     loaded = load_protocol(path)
@@ -181,7 +184,8 @@ def test_points_from_a_protocol_file(make_protocol: Callable[..., Path]) -> None
 def test_the_same_file_twice_gives_the_same_points(make_protocol: Callable[..., Path]) -> None:
     path = make_protocol(
         "{axis: temperature, start: 300 K, stop: 250 K, step: 25 K}",
-        "{axis: field, start: -40 mT, stop: 40 mT, step: 20 mT, return: true, snake: true}",
+        "{axis: field, start: -40 mT, stop: 40 mT, step: 20 mT, return: true,"
+        " alternate_direction: true}",
         "{axis: current, start: 1 mA, stop: 3 mA, num: 3}",
     )
 

@@ -3,9 +3,9 @@ the simulated instruments for more than the limits allow; whatever it refuses, i
 exit 2 and one line, before any VISA session exists.
 
 Protocols and rigs are drawn at random (axes, order, values partly inside and partly outside
-the limits, ranges, `return`, `snake`, patterns, units) and written as YAML; the limits the
-assertions use are computed here, from the text written, with this file's own unit table and
-the parallel-resistor formula -- never by the code under test.
+the limits, ranges, `return`, `alternate_direction`, patterns, units) and written as YAML; the
+limits the assertions use are computed here, from the text written, with this file's own unit
+table and the parallel-resistor formula -- never by the code under test.
 """
 
 from __future__ import annotations
@@ -315,9 +315,9 @@ def cases(draw: st.DrawFn) -> Case:
                                     TEMPERATURE_UNITS, beyond(), positive=True))
         loop = {"axis": axis, **body}
         if index > 0 and draw(st.booleans()):
-            loop["snake"] = True
+            loop["alternate_direction"] = True
         elif index == 0 and _now_and_then(draw, 16):
-            loop["snake"] = True  # not allowed on the outermost loop: check refuses
+            loop["alternate_direction"] = True  # not allowed on the outermost loop: check refuses
         loops.append(loop)
 
     finish: dict[str, Any] = {"current": "off", "field": draw(st.sampled_from(["zero", "hold"]))}
@@ -558,7 +558,8 @@ VALID_PROTOCOL: dict[str, Any] = {
     "rotation_plane": "xy",
     "loops": [{"axis": "temperature", "values": ["300 K"]},
               {"axis": "field", "start": "0.1 T", "stop": "0.3 T", "step": "0.1 T"},
-              {"axis": "angle", "start": "0 deg", "stop": "90 deg", "num": 3, "snake": True},
+              {"axis": "angle", "start": "0 deg", "stop": "90 deg", "num": 3,
+               "alternate_direction": True},
               {"axis": "current", "values": ["1 mA", "2 mA"], "return": True}],
     "alternation": {"pattern": "+0-", "cycles": 2, "settle": "20 ms"},
     "readings": {"per_step": 1, "channels": ["vxx", "vxy"]},

@@ -16,7 +16,7 @@ MODE = "dc_reversal"
 PLANS = [
     LoopPlan("temperature", (300.0, 200.0)),
     LoopPlan("field", (0.2, 1.0)),
-    LoopPlan("angle", (0.0, 90.0), snake=True),
+    LoopPlan("angle", (0.0, 90.0), alternate_direction=True),
     LoopPlan("current", (1e-3, 2e-3)),
 ]
 
@@ -39,7 +39,7 @@ def test_moves_come_before_the_point_outermost_first_and_only_on_change() -> Non
         ("move", "temperature", 300.0), ("move", "field", 0.2), ("move", "angle", 0.0),
         ("measure", 0), ("measure", 1),  # the current changes inside the point, no move
         ("move", "angle", 90.0), ("measure", 2), ("measure", 3),
-        ("move", "field", 1.0),  # snake: the angle stays at 90 for the next pass
+        ("move", "field", 1.0),  # alternate direction: the angle stays at 90 for the next pass
         ("measure", 4), ("measure", 5),
         ("move", "angle", 0.0),
     ]
@@ -61,7 +61,7 @@ def test_resume_re_establishes_every_slow_axis_then_continues_identically() -> N
     full = list(iterate_steps(PLANS, MODE))
     resumed = list(iterate_steps(PLANS, MODE, start_point=6))
     head = describe(resumed[:4])
-    # point 6: temperature 300 K, field 1 T, angle 0 (second pass of the snake reversed)
+    # point 6: temperature 300 K, field 1 T, angle 0 (second pass of the angle loop reversed)
     assert head == [("move", "temperature", 300.0), ("move", "field", 1.0),
                     ("move", "angle", 0.0), ("measure", 6)]
     measures_full = [s for s in full if isinstance(s, Measure) and s.point.number >= 6]

@@ -65,10 +65,11 @@ def _expand_loops(protocol: Any, source: SourceMap) -> tuple[tuple[float, ...], 
                 ("loops", index, "axis"), "merge the two loops into one",
             )
         seen[loop.axis] = index
-        if loop.snake and index == 0:
+        if loop.alternate_direction and index == 0:
             raise source.error(
-                "'snake' needs an outer loop whose passes it alternates",
-                ("loops", index, "snake"), "remove 'snake: true' from the outermost loop",
+                "'alternate_direction' needs an outer loop whose passes it alternates",
+                ("loops", index, "alternate_direction"),
+                "remove 'alternate_direction: true' from the outermost loop",
             )
         try:
             values = loop_values.expand(

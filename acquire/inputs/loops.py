@@ -87,7 +87,7 @@ def expand(
     spacing: str,
     there_and_back: bool,
 ) -> tuple[float, ...]:
-    """The ordered values of one pass of a loop (before any snake reversal)."""
+    """The ordered values of one pass of a loop (before any reversal on alternate passes)."""
     ranged = (start, stop, step, num)
     if values is not None:
         if any(item is not None for item in ranged):

@@ -121,8 +121,10 @@ class LoopBase(Strict):
     axis: str
     spacing: Literal["linear", "log"] = "linear"
     return_: bool = Field(default=False, alias="return", description="sweep there and back")
-    snake: bool = Field(
-        default=False, description="reverse direction on alternate passes of the outer loop"
+    alternate_direction: bool = Field(
+        default=False,
+        description="run backwards on every second pass of the loops outside it, so the axis "
+        "never jumps back to its start; not on the outermost loop",
     )
     num: int | None = Field(default=None, description="number of values from start to stop")
     values: list[float] | None = None

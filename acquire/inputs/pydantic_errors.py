@@ -61,6 +61,25 @@ def _resolve(annotation: Any, node: Any) -> type[BaseModel] | None:
 
 def _allowed_keys(model: type[BaseModel], loc: KeyPath, data: Any) -> list[str]:
     """Field names (and aliases) of the sub-model at `loc`, for a did-you-mean."""
+    resolved = _model_at(model, loc, data)
+    if resolved is None:
+        return []
+    return [info.alias or name for name, info in resolved.model_fields.items()]
+
+
+def _yes_no_keys(model: type[BaseModel], loc: KeyPath, data: Any) -> str | None:
+    """The true/false keys of the sub-model at `loc` with their meaning: what a user who wrote
+    an unknown key with a true/false value most likely wanted (a key of another program)."""
+    resolved = _model_at(model, loc, data)
+    if resolved is None:
+        return None
+    keys = [f"'{info.alias or name}: true' ({info.description or name})"
+            for name, info in resolved.model_fields.items() if info.annotation is bool]
+    return "the true/false keys here are " + "; ".join(keys) if keys else None
+
+
+def _model_at(model: type[BaseModel], loc: KeyPath, data: Any) -> type[BaseModel] | None:
+    """The sub-model validating the node at `loc` (a union's member chosen by its tag)."""
     annotation: Any = model
     node = data
     for part in loc:
@@ -70,13 +89,10 @@ def _allowed_keys(model: type[BaseModel], loc: KeyPath, data: Any) -> list[str]:
         else:
             resolved = _resolve(annotation, node)
             if resolved is None or part not in resolved.model_fields:
-                return []
+                return None
             annotation = resolved.model_fields[str(part)].annotation
         node = _written(node, (part,), None)
-    resolved = _resolve(annotation, node)
-    if resolved is None:
-        return []
-    return [info.alias or name for name, info in resolved.model_fields.items()]
+    return _resolve(annotation, node)
 
 
 def _clean_loc(loc: tuple[Any, ...], data: Any) -> KeyPath:
@@ -144,7 +160,9 @@ def pydantic_error(
         if other is not None:
             return source.error(other.problem, other.key, other.fix)
         allowed = _allowed_keys(model, path[:-1], document.data)
-        fix = did_you_mean(str(key_name), allowed) or f"allowed keys: {', '.join(allowed)}"
+        yes_no = _yes_no_keys(model, path[:-1], document.data) if isinstance(value, bool) else None
+        fix = (did_you_mean(str(key_name), allowed) or yes_no
+               or f"allowed keys: {', '.join(allowed)}")
         return source.error(f"unknown key {key_name!r}", path, fix)
     if kind == "missing":
         return source.error("is required but missing", path, f"add '{key_name}:'")

@@ -27,7 +27,7 @@ def movable_axis_names() -> tuple[str, ...]:
 class LoopPlan:
     axis: str
     values: tuple[float, ...]
-    snake: bool = False
+    alternate_direction: bool = False  # reversed on odd passes of the outer loops
 
 
 @dataclass(frozen=True, slots=True)
@@ -65,7 +65,7 @@ Step = Move | Measure
 
 def plans_from(protocol: Any, loop_values: Sequence[tuple[float, ...]]) -> list[LoopPlan]:
     return [
-        LoopPlan(loop.axis, values, loop.snake)
+        LoopPlan(loop.axis, values, loop.alternate_direction)
         for loop, values in zip(protocol.loops, loop_values)
     ]
 
@@ -75,7 +75,8 @@ def count_points(plans: Sequence[LoopPlan]) -> int:
 
 
 def iterate_points(plans: Sequence[LoopPlan]) -> Iterator[Point]:
-    """Points in measurement order. A snake loop runs backwards on odd passes."""
+    """Points in measurement order. A loop with `alternate_direction` runs backwards on odd
+    passes of the loops outside it."""
     sizes = [len(plan.values) for plan in plans]
     inner_pass_size = sizes[-1] if sizes else 1
     total = prod(sizes)
@@ -91,7 +92,7 @@ def iterate_points(plans: Sequence[LoopPlan]) -> Iterator[Point]:
         outer_index = 0  # flat index of the enclosing loops' combination = this loop's pass
         for depth, plan in enumerate(plans):
             index = digits[depth]
-            if plan.snake and outer_index % 2 == 1:
+            if plan.alternate_direction and outer_index % 2 == 1:
                 index = sizes[depth] - 1 - index
             value = plan.values[index]
             if plan.axis == CURRENT_AXIS:
