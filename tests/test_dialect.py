@@ -13,17 +13,17 @@ from drivers.dialect import dialect_for, role_dialect, validate_dialects
 from drivers.replies import ReplyFormatError, reply_parser
 from tests.test_drivers_support import make_rig, standard_instruments
 
-# The defaults written in the brief's command vocabulary, checked verbatim.
+# The default templates as the README's table lists them, checked verbatim.
 DEFAULTS = {
     "current_source": {"set_current": "SOUR:CURR {value:.9g}", "output_on": "OUTP ON",
                        "output_off": "OUTP OFF", "compliance": "SOUR:VOLT:PROT {value:.6g}",
                        "tripped": "SOUR:VOLT:PROT:TRIP?", "read_current": "SOUR:CURR?"},
     "voltmeter": {"read": "READ?"},
-    "field": {"set_target": "FIELD:TARG {value:.6g}", "ramp_rate": "FIELD:RATE {value:.6g}",
-              "field": "FIELD?"},
+    "field": {"set_target": "FLD:GOAL {value:.6g}", "ramp_rate": "FLD:SLEW {value:.6g}",
+              "field": "FLD:NOW?"},
     "rotator": {"move": "ROT:ABS {value:.4f}", "position": "ROT:POS?", "moving": "ROT:MOV?",
                 "home": "ROT:HOME"},
-    "temperature": {"setpoint": "TEMP:SETP {value:.4f}", "temperature": "TEMP?"},
+    "temperature": {"setpoint": "TEMP:GOAL {value:.4f}", "temperature": "TEMP:NOW?"},
 }
 
 
@@ -41,7 +41,7 @@ def test_rendering_sends_si_values_and_per_minute_rates() -> None:
     source = role_dialect("current_source")
     assert source.render("set_current", -1.5e-3) == "SOUR:CURR -0.0015"
     assert source.render("output_on") == "OUTP ON"
-    spec = make_rig({"magnet": {"role": "field", "resource": "GPIB0::3::INSTR",
+    spec = make_rig({"magnet": {"role": "field", "resource": "GPIB0::14::INSTR",
                                 "commands": {"ramp_rate": "RATE {per_minute:.4g}"},
                                 "limits": {"field": "1 T", "ramp_rate": "1 T/min"}},
                      "source": standard_instruments()["source"]}).instruments["magnet"]

@@ -48,14 +48,14 @@ class OhmicSample:
 
 def standard_instruments() -> dict[str, dict[str, Any]]:
     return {
-        "source": {"role": "current_source", "resource": "GPIB0::12::INSTR",
-                   "compliance": "10 V", "limits": {"current": "20 mA"}},
-        "vxx": {"role": "voltmeter", "resource": "GPIB0::7::INSTR", "nplc": 1},
-        "vxy": {"role": "voltmeter", "resource": "GPIB0::8::INSTR", "probe": "transverse"},
-        "magnet": {"role": "field", "resource": "GPIB0::3::INSTR",
+        "source": {"role": "current_source", "resource": "GPIB0::5::INSTR",
+                   "compliance": "8 V", "limits": {"current": "20 mA"}},
+        "vxx": {"role": "voltmeter", "resource": "GPIB0::21::INSTR", "nplc": 1},
+        "vxy": {"role": "voltmeter", "resource": "GPIB0::22::INSTR", "probe": "transverse"},
+        "magnet": {"role": "field", "resource": "GPIB0::14::INSTR",
                    "limits": {"field": "2 T", "ramp_rate": "1 T/min"}},
         "stage": {"role": "rotator", "resource": "ASRL3::INSTR", "speed": "10 deg/s"},
-        "cryo": {"role": "temperature", "resource": "GPIB0::9::INSTR", "rate": "2 K/min"},
+        "cryo": {"role": "temperature", "resource": "GPIB0::17::INSTR", "rate": "2 K/min"},
     }
 
 

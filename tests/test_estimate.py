@@ -27,7 +27,7 @@ instruments:
   stage: {role: rotator, resource: "GPIB0::5::INSTR", latency: 0 s, speed: 5 deg/s,
           backlash: 1.5 deg, limits: {min: -10 deg, max: 370 deg}}
   cryo: {role: temperature, resource: "GPIB0::6::INSTR", latency: 0 s, rate: 4 K/min,
-         limits: {min: 2 K, max: 400 K}}
+         limits: {min: 1.6 K, max: 330 K}}
 """
 QUIET_WAITS = "{field: {hold: 0 s}, angle: {settle: 0 s}, temperature: {hold: 0 s}}"
 
@@ -123,7 +123,8 @@ def test_temperature_changes_at_the_controller_rate(
 
 def test_counts_and_peak_density(make_protocol: MakeProtocol) -> None:
     path = make_protocol("{axis: field, values: [0.2 T, 1 T]}",
-                         "{axis: angle, start: 0 deg, stop: 350 deg, step: 10 deg, alternate_direction: true}",
+                         "{axis: angle, start: 0 deg, stop: 350 deg, step: 10 deg,"
+                         " alternate_direction: true}",
                          "{axis: current, values: [1 mA, 2 mA, 3 mA]}",
                          readings="{per_step: 2, channels: [vxx, vxy]}",
                          alternation='{pattern: "+0-", cycles: 4}')

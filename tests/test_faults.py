@@ -235,8 +235,8 @@ def test_a_fault_during_a_move_repeats_the_move_and_flags_the_next_point(
 ) -> None:
     # A ten-minute backoff: on the virtual clock it costs no real time.
     monkeypatch.setattr(Runner, "retry_backoff_s", (600.0, 600.0, 600.0))
-    faults = {3: CommunicationError("magnet", "FIELD?", "no reply within the 5 s timeout"),
-              4: InstrumentError("magnet", "FIELD?", "unexpected reply: got '#~@'")}
+    faults = {3: CommunicationError("magnet", "FLD:NOW?", "no reply within the 5 s timeout"),
+              4: InstrumentError("magnet", "FLD:NOW?", "unexpected reply: got '#~@'")}
     faulty_field_readback(monkeypatch, faults.get)
     out = tmp_path / "run"
     started = time.monotonic()
@@ -254,7 +254,7 @@ def test_a_fault_during_a_move_repeats_the_move_and_flags_the_next_point(
 def test_a_persistent_fault_during_a_move_stops_the_run(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch, field_protocol: Path
 ) -> None:
-    fault = CommunicationError("magnet", "FIELD?", "no reply within the 5 s timeout")
+    fault = CommunicationError("magnet", "FLD:NOW?", "no reply within the 5 s timeout")
     calls = faulty_field_readback(monkeypatch, lambda n: fault if n >= 3 else None)
     out = tmp_path / "run"
     assert simulate(field_protocol, out) == 1

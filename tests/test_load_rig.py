@@ -20,9 +20,9 @@ from tests.conftest import PROTOCOLS, SIMULATED_RIG
 TEMPLATE = PROTOCOLS / "rigs" / "real_rig_template.yaml"
 Write = Callable[[str, str], Path]
 
-SOURCE = ('  source: {role: current_source, resource: "GPIB0::12::INSTR", '
+SOURCE = ('  source: {role: current_source, resource: "GPIB0::5::INSTR", '
           'limits: {current: 20 mA}}\n')
-VXX = '  vxx: {role: voltmeter, resource: "GPIB0::7::INSTR"}\n'
+VXX = '  vxx: {role: voltmeter, resource: "GPIB0::21::INSTR"}\n'
 
 
 def rig_text(*lines: str) -> str:
@@ -36,7 +36,7 @@ def test_simulated_rig_values_in_si() -> None:
     assert rig.mains_frequency == pytest.approx(50.0)
     source = rig.instruments["source"]
     assert (source.role, source.compliance, source.limits.current) == (
-        "current_source", pytest.approx(10.0), pytest.approx(20e-3)
+        "current_source", pytest.approx(8.0), pytest.approx(20e-3)
     )
     magnet = rig.instruments["magnet"]
     assert magnet.limits.field == pytest.approx(2.0)
@@ -47,7 +47,7 @@ def test_simulated_rig_values_in_si() -> None:
     # min/max are read by role: degrees for the rotator, kelvin for the controller
     assert (stage.limits.min, stage.limits.max) == (pytest.approx(-10.0), pytest.approx(370.0))
     cryo = rig.instruments["cryo"]
-    assert (cryo.limits.min, cryo.limits.max) == (pytest.approx(2.0), pytest.approx(400.0))
+    assert (cryo.limits.min, cryo.limits.max) == (pytest.approx(1.6), pytest.approx(330.0))
     assert set(rig.of_role(role_named("voltmeter"))) == {"vxx", "vxy"}
 
 
@@ -66,7 +66,7 @@ def test_rig_extends_a_base_rig(write: Write) -> None:
     [
         (rig_text(SOURCE, VXX.replace("}", ", speed: 1 deg/s}")),
          "'speed' does not apply to a voltmeter", ("instruments", "vxx", "speed")),
-        (rig_text(SOURCE, '  m: {role: field, resource: "GPIB0::3::INSTR", '
+        (rig_text(SOURCE, '  m: {role: field, resource: "GPIB0::14::INSTR", '
                           'limits: {field: 1 T, ramp_rate: 1 T/min, current: 1 A}}\n'),
          "limit 'current' does not apply to a field", ("instruments", "m", "limits", "current")),
         (rig_text(SOURCE, '  s: {role: rotator, resource: "ASRL1::INSTR", '

@@ -119,7 +119,7 @@ def rigs(draw: st.DrawFn) -> tuple[dict[str, Any], dict[str, Any]]:
     # The simulated bath starts at 300 K (the rig's start_temperature_K): keep that in range.
     temperature_min = _fixed(draw, 250.0, 299.0, draw(st.integers(0, 3)))
     temperature_max = _fixed(draw, 301.0, 350.0, draw(st.integers(0, 3)))
-    magnet: dict[str, Any] = {"role": "field", "resource": "GPIB0::3::INSTR",
+    magnet: dict[str, Any] = {"role": "field", "resource": "GPIB0::14::INSTR",
                               "limits": {"field": field_limit, "ramp_rate": ramp_limit}}
     if draw(st.booleans()):  # a ramp rate setting, now and then above the limit (refused)
         fraction = 1.2 if _now_and_then(draw, 8) else draw(st.floats(0.3, 1.0))
@@ -137,16 +137,16 @@ def rigs(draw: st.DrawFn) -> tuple[dict[str, Any], dict[str, Any]]:
         "name": "property rig",
         "visa_library": "@sim",
         "instruments": {
-            "source": {"role": "current_source", "resource": "GPIB0::12::INSTR",
+            "source": {"role": "current_source", "resource": "GPIB0::5::INSTR",
                        "compliance": text(_sig(draw, 5.0, 20.0, 2), "V"),
                        "limits": {"current": source_limit}},
-            "vxx": {"role": "voltmeter", "resource": "GPIB0::7::INSTR", "nplc": 0.1,
+            "vxx": {"role": "voltmeter", "resource": "GPIB0::21::INSTR", "nplc": 0.1,
                     "probe": "longitudinal"},
-            "vxy": {"role": "voltmeter", "resource": "GPIB0::8::INSTR", "nplc": 0.1,
+            "vxy": {"role": "voltmeter", "resource": "GPIB0::22::INSTR", "nplc": 0.1,
                     "probe": "transverse"},
             "magnet": magnet,
             "stage": stage,
-            "cryo": {"role": "temperature", "resource": "GPIB0::9::INSTR",
+            "cryo": {"role": "temperature", "resource": "GPIB0::17::INSTR",
                      "rate": text(_sig(draw, 10.0, 60.0, 2), "K/min"),
                      "limits": {"min": f"{temperature_min:g} K",
                                 "max": f"{temperature_max:g} K"}},
@@ -577,18 +577,18 @@ VALID_RIG: dict[str, Any] = {
     "visa_library": "@sim",
     "mains_frequency": "50 Hz",
     "instruments": {
-        "source": {"role": "current_source", "resource": "GPIB0::12::INSTR",
-                   "compliance": "10 V", "limits": {"current": "20 mA"}},
-        "vxx": {"role": "voltmeter", "resource": "GPIB0::7::INSTR", "nplc": 1,
+        "source": {"role": "current_source", "resource": "GPIB0::5::INSTR",
+                   "compliance": "8 V", "limits": {"current": "20 mA"}},
+        "vxx": {"role": "voltmeter", "resource": "GPIB0::21::INSTR", "nplc": 1,
                 "probe": "longitudinal"},
-        "vxy": {"role": "voltmeter", "resource": "GPIB0::8::INSTR", "nplc": 1,
+        "vxy": {"role": "voltmeter", "resource": "GPIB0::22::INSTR", "nplc": 1,
                 "probe": "transverse"},
-        "magnet": {"role": "field", "resource": "GPIB0::3::INSTR", "ramp_rate": "1 T/min",
+        "magnet": {"role": "field", "resource": "GPIB0::14::INSTR", "ramp_rate": "1 T/min",
                    "limits": {"field": "2 T", "ramp_rate": "1 T/min"}},
         "stage": {"role": "rotator", "resource": "ASRL3::INSTR", "speed": "10 deg/s",
                   "backlash": "2 deg", "limits": {"min": "-10 deg", "max": "370 deg"}},
-        "cryo": {"role": "temperature", "resource": "GPIB0::9::INSTR", "rate": "5 K/min",
-                 "limits": {"min": "2 K", "max": "400 K"}},
+        "cryo": {"role": "temperature", "resource": "GPIB0::17::INSTR", "rate": "5 K/min",
+                 "limits": {"min": "1.6 K", "max": "330 K"}},
     },
     "simulation": {"spin_hall_sign": 1, "start_temperature_K": 300},
 }
@@ -720,8 +720,8 @@ ROUNDED_PAST_THE_LIMIT = {
               {"source": {"commands": {"set_current": "SOUR:CURR {value:.2g}"}},
                "magnet": {"ramp_rate": "0.55 T/min",
                           "limits": {"field": "1.006 T", "ramp_rate": "0.55 T/min"},
-                          "commands": {"set_target": "FIELD:TARG {value:.2f}",
-                                       "ramp_rate": "FIELD:RATE {per_minute:.1f}"}}}),
+                          "commands": {"set_target": "FLD:GOAL {value:.2f}",
+                                       "ramp_rate": "FLD:SLEW {per_minute:.1f}"}}}),
         Case({}, {}, current_max_A=1.26e-3, field_max_T=1.006, ramp_max_T_per_s=0.55 / 60.0),
     ),
     # A stage limit in radians: 6.28319 rad = 360.000269 deg; 360.00026 deg is inside it and

@@ -38,7 +38,7 @@ def test_identities_name_no_maker_or_model() -> None:
 
 def test_unknown_command_gets_the_error_reply_and_a_queue_entry() -> None:
     manager = resource_manager_for("@sim")  # the committed generic rig, static replies
-    meter = manager.open_resource("GPIB0::7::INSTR", read_termination="\n",
+    meter = manager.open_resource("GPIB0::21::INSTR", read_termination="\n",
                                   write_termination="\n")
     try:
         assert meter.query("*IDN?") == "flipsweep-sim,voltmeter,vxx,1.0"
@@ -58,7 +58,7 @@ def test_at_sim_with_a_rig_generates_that_rigs_devices() -> None:
     instruments["vxx"]["commands"] = {"read": "SAMPLE?"}
     manager = resource_manager_for("@sim", make_rig(instruments))
     try:
-        meter = manager.open_resource("GPIB0::7::INSTR", read_termination="\n",
+        meter = manager.open_resource("GPIB0::21::INSTR", read_termination="\n",
                                       write_termination="\n")
         assert float(meter.query("SAMPLE?")) == 0.0
         meter.close()
@@ -69,7 +69,7 @@ def test_at_sim_with_a_rig_generates_that_rigs_devices() -> None:
 def test_definitions_file_relative_to_the_rig(tmp_path: Path) -> None:
     (tmp_path / "defs.yaml").write_text(definitions_text(make_rig()), encoding="utf-8")
     manager = resource_manager_for("defs.yaml@sim", base_dir=tmp_path)
-    assert "GPIB0::12::INSTR" in manager.list_resources()
+    assert "GPIB0::5::INSTR" in manager.list_resources()
     manager.close()
     with pytest.raises(InputError, match="no simulation definitions"):
         resource_manager_for("missing.yaml@sim", base_dir=tmp_path)

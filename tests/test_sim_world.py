@@ -22,7 +22,7 @@ def test_truth_is_json_ready_and_holds_sample_and_world() -> None:
 def test_bad_values_go_to_the_error_queue_and_clear_status_empties_it() -> None:
     with simulated(make_rig(), OhmicSample()) as (simulated_rig, drivers):
         raw = simulated_rig.resource_manager.open_resource(
-            "GPIB0::7::INSTR", read_termination="\n", write_termination="\n"
+            "GPIB0::21::INSTR", read_termination="\n", write_termination="\n"
         )
         raw.write("SENS:VOLT:NPLC -1")
         raw.write("SENS:VOLT:NPLC lots")

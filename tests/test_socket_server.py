@@ -101,7 +101,7 @@ def test_served_instruments_answer_identity_and_their_own_dialect(served: Socket
         assert re.fullmatch(r"V=[-+0-9.Ee]+", vxx.query("FETCH:VOLT?"))
         assert vxx.query("READ?") == "ERROR"
         assert float(cryo.query("KELV? A")) == pytest.approx(300.0)  # the rig's start temperature
-        assert cryo.query("TEMP?") == "ERROR"
+        assert cryo.query("TEMP:NOW?") == "ERROR"
         # SCPI-99: the rejected query left "-113,Undefined header" in the error queue.
         assert cryo.query("SYST:ERR?").startswith("-113,")
     finally:

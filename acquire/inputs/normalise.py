@@ -41,8 +41,8 @@ def normalised_protocol(loaded: LoadedProtocol) -> dict[str, Any]:
         },
         "rotation_plane": protocol.rotation_plane,
         "loops": [
-            {"axis": loop.axis, "unit": _axis_unit(loop.axis), "alternate_direction": loop.alternate_direction,
-             "values": list(values)}
+            {"axis": loop.axis, "unit": _axis_unit(loop.axis),
+             "alternate_direction": loop.alternate_direction, "values": list(values)}
             for loop, values in zip(protocol.loops, loaded.loop_values)
         ],
         **loaded.mode.normalised_sections(protocol),

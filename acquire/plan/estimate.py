@@ -98,7 +98,7 @@ def duration_of(
 def _reordered(plans: Sequence[LoopPlan]) -> list[tuple[LoopPlan, ...]]:
     options = []
     for order in itertools.permutations(plans):
-        # A loop that alternates direction cannot be outermost: it has no outer passes to alternate with.
+        # A loop that alternates direction cannot be outermost: no outer passes to alternate with.
         if order[0].alternate_direction:
             order = (LoopPlan(order[0].axis, order[0].values, False), *order[1:])
         options.append(tuple(order))
