@@ -49,7 +49,7 @@ log = logging.getLogger(__name__)
 
 LOOPBACK = "127.0.0.1"
 # A LAN instrument accepts a handful of sessions; a client that reconnects after a fault may
-# briefly hold the old connection and the new one.
+# hold the old connection and the new one for a moment.
 MAX_CONNECTIONS_PER_INSTRUMENT = 8
 LISTEN_BACKLOG = MAX_CONNECTIONS_PER_INSTRUMENT
 # SCPI messages are short; a longer line without a termination is a client speaking another

@@ -1,4 +1,5 @@
-"""Reduction: the DESIGN.md definitions, checked against an independent computation."""
+"""Reduction: the definitions of docs/conventions.md, checked against an independent
+computation."""
 
 from __future__ import annotations
 
@@ -43,7 +44,7 @@ def synthetic_voltages(
 
 
 def independent_reduction(v: np.ndarray, pattern: str, current: float) -> dict[str, float]:
-    """Plain loops over cycles, straight from the definitions in DESIGN.md."""
+    """Plain loops over cycles, straight from the definitions in docs/conventions.md."""
     r_cycles, u_cycles = [], []
     for cycle in v:
         plus = np.mean([cycle[k].mean() for k, s in enumerate(pattern) if s == "+"])

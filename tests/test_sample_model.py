@@ -258,7 +258,7 @@ def test_even_part_does_not_depend_on_current_sign() -> None:
 
 
 def test_readings_reduce_to_the_expected_point() -> None:
-    # The reduction of DESIGN.md applied to three readings must recover expected():
+    # The reduction of docs/conventions.md applied to three readings must recover expected():
     # R = (V+ - V-) / 2I and Delta R = (V+ + V- - 2 V0) / 2I. A 1e6 s integration makes
     # sigma ~ 20 nV / sqrt(2e6) ~ 1.4e-11 V, i.e. ~7e-9 ohm on either value at 2 mA.
     sample = _sample("xy", seed=3, drift_V_per_s=0.0)

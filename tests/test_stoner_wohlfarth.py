@@ -152,7 +152,8 @@ def test_magnetisation_stays_a_unit_vector(plane: str) -> None:
 
 
 def test_field_directions_of_the_rotation_planes() -> None:
-    # Conventions of the brief: xy from +x to +y, zx from +z to +x, zy from +z to +y.
+    # The conventions of docs/conventions.md: xy from +x to +y, zx from +z to +x, zy from +z
+    # to +y.
     assert field_direction(90.0, "xy") == pytest.approx((0.0, 1.0, 0.0), abs=1e-15)
     assert field_direction(90.0, "zx") == pytest.approx((1.0, 0.0, 0.0), abs=1e-15)
     assert field_direction(90.0, "zy") == pytest.approx((0.0, 1.0, 0.0), abs=1e-15)
@@ -162,7 +163,8 @@ def test_field_directions_of_the_rotation_planes() -> None:
 
 
 def test_apply_field_is_fast_enough_for_a_night() -> None:
-    # The brief asks < 200 us per typical call: an angle scan at a few fields in each
+    # The sample model's budget is < 200 us per typical call, so that a night's rehearsal
+    # takes seconds: an angle scan at a few fields in each
     # plane plus a slow field loop near the coercive field. Measured ~10-30 us on the
     # 2-core machine, so the bound leaves margin for a loaded CI host.
     calls = 0
