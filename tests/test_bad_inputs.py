@@ -59,6 +59,7 @@ REQUIRED = {
     "channel not in the rig": "channel_not_in_rig",
     "channel not a voltmeter": "channel_not_voltmeter",
     "log spacing through zero": "log_through_zero",
+    "a stop the step does not reach": "loop_stop_off_the_grid",
     "num below 2": "num_below_two",
     "extends a missing file": "extends_missing",
     "extends cycle": "extends_cycle_a",

@@ -39,9 +39,25 @@ def test_step_downwards() -> None:
     assert ranged(300, 100, step=50) == pytest.approx([300, 250, 200, 150, 100], rel=REL)
 
 
-def test_stop_off_the_grid_is_not_overshot() -> None:
-    assert ranged(0, 1, step=0.3) == pytest.approx([0, 0.3, 0.6, 0.9], rel=REL)
-    assert ranged(1, 0, step=0.3) == pytest.approx([1, 0.7, 0.4, 0.1], rel=REL)
+@pytest.mark.parametrize("start, stop, last, beyond", [(0, 1, "0.9", "1.2"),
+                                                     (1, 0, "0.1", "-0.2")])
+def test_a_stop_off_the_grid_is_an_error_naming_the_last_value(
+        start: float, stop: float, last: str, beyond: str) -> None:
+    # 0, 0.3, 0.6, 0.9 and then 1.2: the stop 1 is never reached, and nothing is dropped quietly.
+    with pytest.raises(LoopSpecError) as caught:
+        ranged(start, stop, step=0.3)
+    assert caught.value.key == "stop"
+    assert f"the last value would be {last}" in caught.value.problem
+    assert f"set stop to {last} or {beyond}" in caught.value.fix
+
+
+def test_a_stop_a_hair_off_the_grid_is_reached_exactly() -> None:
+    # A step written to six digits (1/3 as 0.333333) misses 1 by 1e-6: the stop is meant.
+    assert ranged(0, 1, step=0.333333) == pytest.approx([0, 0.333333, 0.666666, 1], rel=REL)
+    assert ranged(0, 1, step=0.333333)[-1] == 1.0
+    # 0.1 % of a step is the tolerance (GRID_TOLERANCE): 2 % off is refused.
+    with pytest.raises(LoopSpecError):
+        ranged(0, 1, step=0.34)
 
 
 def test_float_steps_reach_the_stop_exactly() -> None:
@@ -66,12 +82,23 @@ def test_num_both_directions() -> None:
     assert ranged(2, -2, num=3) == pytest.approx([2, 0, -2], rel=REL)
 
 
-def test_log_spacing_has_a_constant_ratio() -> None:
+def test_log_spacing_has_a_constant_ratio_to_the_rounding() -> None:
     values = ranged(0.05, 2, num=8, spacing="log")
     ratio = (2 / 0.05) ** (1 / 7)  # 40 ** (1/7), by hand
-    assert values[0] == pytest.approx(0.05, rel=REL) and values[-1] == pytest.approx(2, rel=REL)
-    for low, high in pairwise(values):
-        assert high / low == pytest.approx(ratio, rel=1e-10)
+    assert values[0] == 0.05 and values[-1] == 2.0  # the ends as written
+    exact = [0.05 * ratio**k for k in range(8)]
+    for k in range(1, 7):
+        spacing = min(exact[k] - exact[k - 1], exact[k + 1] - exact[k])
+        # Three significant digits of the spacing: off by at most half a unit of the third.
+        assert abs(values[k] - exact[k]) <= 0.005 * spacing * (1 + 1e-9)
+    assert values[1:4] == (0.0847, 0.1435, 0.243)  # 0.05 * 1.69381..^k, by hand
+
+
+def test_generated_values_are_short() -> None:
+    # 100 K to 300 K in five log steps: 100 * 3^(k/5) = 124.57, 155.18, 193.32, 240.82 K
+    # (by hand), spaced 25-60 K apart, so kept to 0.1 K.
+    assert ranged(100, 300, num=6, spacing="log") == (100.0, 124.6, 155.2, 193.3, 240.8, 300.0)
+    assert ranged(0, 1, num=4) == (0.0, 0.333, 0.667, 1.0)
 
 
 def test_log_spacing_of_negative_values() -> None:

@@ -19,6 +19,8 @@ from acquire.modes.base import AcquisitionMode
 from drivers.dialect import dialect_for
 from drivers.rig import Rig
 from drivers.roles import all_roles, movable_axes, role_named, role_names, role_of_axis
+from drivers.roles.base import Quantity
+from drivers.roles.current_source import CURRENT
 
 
 @dataclass(frozen=True)
@@ -75,6 +77,7 @@ def _expand_loops(protocol: Any, source: SourceMap) -> tuple[tuple[float, ...], 
             values = loop_values.expand(
                 values=loop.values, start=loop.start, stop=loop.stop, step=loop.step,
                 num=loop.num, spacing=loop.spacing, there_and_back=loop.return_,
+                show=_quantity_of(loop.axis).shown,
             )
         except loop_values.LoopSpecError as error:
             raise source.error(error.problem, ("loops", index, error.key), error.fix) from None
@@ -85,6 +88,13 @@ def _expand_loops(protocol: Any, source: SourceMap) -> tuple[tuple[float, ...], 
             "no current loop", ("loops",), "add e.g. '- {axis: current, values: [1 mA]}'"
         )
     return tuple(result)
+
+
+def _quantity_of(axis: str) -> Quantity:
+    """How the axis's values are shown in messages (in the unit a person writes)."""
+    if axis == CURRENT_AXIS:
+        return CURRENT
+    return next(moved.quantity for moved in movable_axes() if moved.name == axis)
 
 
 def _check_axis_values(
