@@ -18,7 +18,7 @@ else:
 
 
 class Rig(Strict):
-    name: str = Field(min_length=1)
+    name: str = Field(min_length=1, description="the rig's name, shown by check, in run.json")
     visa_library: str = Field(default="@py", description="'@py', '@sim' or 'file.yaml@sim'")
     mains_frequency: Frequency = Field(default=50.0, gt=0, description="of the lab's mains")
     instruments: dict[str, InstrumentEntry] = Field(min_length=1)

@@ -18,7 +18,7 @@ class NoLimits(Strict):
 
 
 class InstrumentSpec(Strict):
-    role: str
+    role: str = Field(description="what the instrument does in the rig (the roles below)")
     resource: str = Field(min_length=1, description="VISA resource string")
     timeout: Duration = Field(default=5.0, gt=0, description="VISA timeout of one transaction")
     read_termination: str = Field(default="\n", description="what ends a reply")

@@ -1,12 +1,9 @@
 """Loop values from a loop spec: explicit, start/stop/step, start/stop/num, log, there and back.
 
-Two rules make the values the ones the user wrote (docs/protocol.md, "Loop values"):
-- `step`: the values are start + k * step and the last one is `stop`, which must lie on that
-  grid (within GRID_TOLERANCE of a step, so a step written to a few digits still reaches it);
-  a stop off the grid is an error naming the last value reached, never a silent shortfall.
-- `num`: the values between start and stop (linear or log) are rounded to three significant
-  digits of their spacing (SPACING_DIGITS), which moves none by more than 0.5 % of a step;
-  start and stop stay exactly as written.
+Two rules keep the values the ones the user wrote (stated for users in docs/protocol.md):
+a `step` grid must reach `stop` (GRID_TOLERANCE), or the loop is refused naming the last
+value reached, never cut short in silence; values made from `num` are rounded to
+SPACING_DIGITS significant digits of their spacing, the ends kept as written.
 """
 
 from __future__ import annotations

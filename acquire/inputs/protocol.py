@@ -75,22 +75,31 @@ class Strict(BaseModel):
 
 
 class Layer(Strict):
-    name: str = Field(min_length=1)
-    thickness: Length = Field(gt=0)
-    resistivity: Resistivity = Field(gt=0)
-    carrier: bool = Field(default=False, description="the layer whose current density matters")
+    """One layer of the stack; the layers share the current as parallel resistors."""
+
+    name: str = Field(min_length=1, description="the layer's name, unique in the stack")
+    thickness: Length = Field(gt=0, description="the layer's thickness")
+    resistivity: Resistivity = Field(gt=0, description="its resistivity at the measurement")
+    carrier: bool = Field(
+        default=False, description="the layer whose current density the limits and the tables "
+        "give (the heavy metal); exactly one when there are several layers",
+    )
 
 
 class ChannelGeometry(Strict):
+    """The part of the channel the longitudinal voltage probes see."""
+
     length: Length = Field(gt=0, description="distance between the voltage probes")
-    width: Length = Field(gt=0)
+    width: Length = Field(gt=0, description="width of the current channel")
 
 
 class Sample(Strict):
-    id: str = Field(min_length=1)
-    stack: str = ""
+    """The device: its name, its channel and its layers (for current densities and limits)."""
+
+    id: str = Field(min_length=1, description="the sample's name, written to run.json")
+    stack: str = Field(default="", description="free text, e.g. 'NiFe 4 nm / Pt 5 nm'")
     channel: ChannelGeometry
-    layers: list[Layer] = Field(min_length=1)
+    layers: list[Layer] = Field(min_length=1, description="the layers, in any order")
     sheet_resistance: Resistance | None = Field(
         default=None, gt=0, description="measured sheet resistance of the whole stack, if known"
     )
@@ -118,19 +127,32 @@ class Sample(Strict):
 
 
 class LoopBase(Strict):
-    axis: str
-    spacing: Literal["linear", "log"] = "linear"
-    return_: bool = Field(default=False, alias="return", description="sweep there and back")
+    """One loop: `values`, or `start` and `stop` with `step` or `num`."""
+
+    axis: str = Field(description="what the loop sweeps: temperature, field, angle or current")
+    spacing: Literal["linear", "log"] = Field(
+        default="linear", description="how `num` values are spread; log needs start and stop "
+        "of one sign",
+    )
+    return_: bool = Field(
+        default=False, alias="return",
+        description="sweep there and back, passing the turning value once",
+    )
     alternate_direction: bool = Field(
         default=False,
         description="run backwards on every second pass of the loops outside it, so the axis "
         "never jumps back to its start; not on the outermost loop",
     )
-    num: int | None = Field(default=None, description="number of values from start to stop")
-    values: list[float] | None = None
-    start: float | None = None
-    stop: float | None = None
-    step: float | None = None
+    num: int | None = Field(
+        default=None, description="number of values from start to stop, both included"
+    )
+    values: list[float] | None = Field(default=None, description="the values, in order")
+    start: float | None = Field(default=None, description="first value of a range")
+    stop: float | None = Field(
+        default=None, description="last value of a range; with `step` it must be on the grid "
+        "start + k * step",
+    )
+    step: float | None = Field(default=None, description="spacing of a range, positive")
 
 
 def _loop_model(axis: str, quantity: Any) -> type[LoopBase]:
@@ -139,8 +161,12 @@ def _loop_model(axis: str, quantity: Any) -> type[LoopBase]:
     values: Any = list[quantity] | None
     bound: Any = quantity | None
     return create_model(
-        f"{axis.title()}Loop", __base__=LoopBase, axis=(tag, ...), values=(values, None),
-        start=(bound, None), stop=(bound, None), step=(bound, None),
+        f"{axis.title()}Loop", __base__=LoopBase, __doc__=f"A loop over the {axis}.",
+        axis=(tag, Field(description=f"'{axis}'")),
+        values=(values, LoopBase.model_fields["values"]),
+        start=(bound, LoopBase.model_fields["start"]),
+        stop=(bound, LoopBase.model_fields["stop"]),
+        step=(bound, LoopBase.model_fields["step"]),
     )
 
 
@@ -149,7 +175,8 @@ def _waits_model() -> type[BaseModel]:
     sections: dict[str, Any] = {
         axis.name: (axis.wait_model, axis.wait_model()) for axis in movable_axes()
     }
-    return create_model("Waits", __base__=Strict, **sections)
+    return create_model("Waits", __base__=Strict, __doc__="How each axis settles after a move.",
+                        **sections)
 
 
 LOOP_MODELS: tuple[type[LoopBase], ...] = (
@@ -197,17 +224,27 @@ DensityLimit = Annotated[
 
 
 class SampleLimits(Strict):
-    current: Current | None = Field(default=None, gt=0, description="largest current amplitude")
+    """What the device survives: checked before anything is sent, on top of the rig's
+    limits. At least one of `current` and `current_density` is required."""
+
+    current: Current | None = Field(
+        default=None, gt=0, description="largest current amplitude (the peak in modes with one)"
+    )
     current_density: DensityLimit | None = Field(
         default=None,
-        description="in every layer (parallel-resistor model), or per layer by name",
+        description="largest current density in every layer (parallel-resistor model), or per "
+        "layer by name",
     )
     power: Power | None = Field(
         default=None, gt=0,
         description="largest peak power dissipated in the channel, I^2 R with the model's R",
     )
-    field: FieldQuantity | None = Field(default=None, gt=0, description="largest |mu0*H|")
-    temperature_max: Temperature | None = Field(default=None, gt=0)
+    field: FieldQuantity | None = Field(
+        default=None, gt=0, description="largest |mu0*H| the sample may see"
+    )
+    temperature_max: Temperature | None = Field(
+        default=None, gt=0, description="highest temperature setpoint for the sample"
+    )
 
 
 # YAML 1.1 (PyYAML, the loader) reads a bare `off` as false; the schema admits both spellings.
@@ -218,11 +255,18 @@ FinishCurrent = Annotated[
 
 
 class Finish(Strict):
+    """The state the run leaves the rig in: at the end, after a failure and after Ctrl-C."""
+
     current: FinishCurrent = Field(
-        default="off", description="the source always goes to zero, then output off"
+        default="off", description="always 'off': the source goes to zero, then output off"
     )
-    field: Literal["zero", "hold"] = "zero"
-    temperature: Literal["hold"] | Temperature = "hold"
+    field: Literal["zero", "hold"] = Field(
+        default="zero", description="'zero': ramp the magnet to zero; 'hold': leave it where it is"
+    )
+    temperature: Literal["hold"] | Temperature = Field(
+        default="hold", description="'hold': keep the last setpoint; a temperature (e.g. "
+        "'300 K'): set it and leave (within the rig's and sample's limits)",
+    )
 
     @field_validator("current", mode="before")
     @classmethod
@@ -235,23 +279,42 @@ ProblemAction = Literal["flag", "retry", "skip", "stop"]
 
 
 class OnProblem(Strict):
-    """What the runner does when an instrument reports a problem at a point."""
+    """What the runner does when an instrument reports a problem at a point: 'flag' keeps the
+    point and marks it; 'retry' measures it again (up to `retries` times), then flags it;
+    'skip' leaves the point out of points.csv (readings already taken stay); 'stop' ends the
+    run in the safe state (exit 1) for `flipsweep resume` to continue."""
 
-    compliance: ProblemAction = "retry"
-    instrument_error: ProblemAction = "retry"
-    wait_timeout: ProblemAction = "skip"
-    retries: int = Field(default=2, ge=0, le=10)
+    compliance: ProblemAction = Field(
+        default="retry", description="the source reached its compliance voltage during a point"
+    )
+    instrument_error: ProblemAction = Field(
+        default="retry", description="an instrument's error queue reported an error at a point"
+    )
+    wait_timeout: ProblemAction = Field(
+        default="skip", description="a field, angle or temperature did not settle within its "
+        "wait's timeout",
+    )
+    retries: int = Field(
+        default=2, ge=0, le=10, description="how often 'retry' measures a point again before it "
+        "keeps the last attempt, flagged",
+    )
 
 
 class ProtocolBase(Strict):
     """The sections every acquisition mode shares; each mode's model adds its own."""
 
-    name: str = Field(min_length=1)
-    description: str = ""
+    name: str = Field(min_length=1, description="what the run is, shown and written to run.json")
+    description: str = Field(default="", description="free text")
     mode: str = Field(default="dc_reversal", description="acquisition mode")
     sample: Sample
-    rotation_plane: Literal["xy", "zx", "zy"] = "xy"
-    loops: list[Loop] = Field(min_length=1)
+    rotation_plane: Literal["xy", "zx", "zy"] = Field(
+        default="xy", description="the plane the field angle turns in: xy from +x (the current) "
+        "towards +y, zx from +z (the film normal) towards +x, zy from +z towards +y",
+    )
+    loops: list[Loop] = Field(
+        min_length=1, description="outermost first; any subset and order of the axes, and a "
+        "current loop always",
+    )
     waits: Waits = Waits()
     limits: SampleLimits
     max_points: int = Field(
@@ -261,5 +324,6 @@ class ProtocolBase(Strict):
     finish: Finish = Finish()
     on_problem: OnProblem = OnProblem()
     notify: list[str] | None = Field(
-        default=None, description="program and arguments run at finish and on failure"
+        default=None, description="a program and its arguments, run when the run ends (done, "
+        "failed or interrupted) with two more arguments: the state and the run folder",
     )

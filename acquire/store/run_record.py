@@ -80,14 +80,23 @@ class HistoryEvent(BaseModel):
 
 
 class RunRecord(Record):
-    flipsweep_run: int = RUN_RECORD_VERSION
-    protocol: InputRecord
-    rig: InputRecord
-    options: OptionsRecord = OptionsRecord()
-    estimate: EstimateRecord
-    software: dict[str, str] = Field(default_factory=dict)
-    host: dict[str, str] = Field(default_factory=dict)
-    history: list[HistoryEvent] = Field(default_factory=list)
+    flipsweep_run: int = Field(default=RUN_RECORD_VERSION, description="version of this record")
+    protocol: InputRecord = Field(description="the protocol: path, every file merged (verbatim, "
+                                  "SHA-256) and the normalised result (as `check --show`)")
+    rig: InputRecord = Field(description="the rig, recorded the same way")
+    options: OptionsRecord = Field(default=OptionsRecord(),
+                                   description="simulate, seed and realtime, as the run was asked")
+    estimate: EstimateRecord = Field(description="points, readings and duration estimated at start")
+    software: dict[str, str] = Field(default_factory=dict,
+                                     description="versions of flipsweep, Python and libraries")
+    host: dict[str, str] = Field(
+        default_factory=dict, description="host name and platform of the computer that ran it, "
+        "and `user`: the operator (the login name, or `run --operator NAME`; `--operator ''` "
+        "records none)",
+    )
+    history: list[HistoryEvent] = Field(default_factory=list,
+                                        description="start, resume, done, interrupted, failed: "
+                                        "each with its UTC time (and reason, run clock, point)")
     instruments: dict[str, str] = Field(default_factory=dict, description="*IDN? replies")
     simulation: dict[str, Any] | None = Field(
         default=None, description="a simulated run's true sample parameters and world settings"

@@ -52,6 +52,9 @@ class FieldSpec(InstrumentSpec):
 
 
 class FieldWait(Strict):
+    """After a field move: the readback stays within `tolerance` of the target for `hold`;
+    no settling within `timeout` is a wait_timeout (see on_problem)."""
+
     tolerance: FieldQuantity = Field(default=1e-3, gt=0, description="readback within this")
     hold: Duration = Field(default=1.0, ge=0, description="for this long")
     timeout: Duration = Field(default=1800.0, gt=0, description="or the wait has failed")

@@ -52,6 +52,9 @@ class RotatorSpec(InstrumentSpec):
 
 
 class AngleWait(Strict):
+    """After a move: the position is within `tolerance` of the target, then a pause of
+    `settle`; a move longer than `timeout` is a wait_timeout (see on_problem)."""
+
     tolerance: Angle = Field(default=0.05, gt=0, description="position within this of target")
     settle: Duration = Field(default=0.5, ge=0, description="pause after arriving")
     timeout: Duration = Field(default=600.0, gt=0, description="or the move has failed")

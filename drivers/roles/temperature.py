@@ -44,6 +44,9 @@ class TemperatureSpec(InstrumentSpec):
 
 
 class TemperatureWait(Strict):
+    """After a new setpoint: the readback stays within `tolerance` of it for `hold`; no
+    settling within `timeout` is a wait_timeout (see on_problem)."""
+
     tolerance: Temperature = Field(default=0.05, gt=0, description="readback within this")
     hold: Duration = Field(default=60.0, ge=0, description="for this long")
     timeout: Duration = Field(default=1800.0, gt=0, description="or the wait has failed")

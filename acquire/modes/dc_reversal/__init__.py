@@ -35,10 +35,13 @@ from drivers.quantities import Duration
 
 
 class Alternation(Strict):
+    """How the current alternates at every point."""
+
     pattern: str = Field(
-        default="+0-", description="current polarities of one cycle, from '+', '0', '-'"
+        default="+0-", description="current polarities of one cycle, from '+', '0', '-', with "
+        "as many '+' as '-' (e.g. '+-', '+0-', '+0-0', '+--+'); a '0' gives the offset V0",
     )
-    cycles: int = Field(default=4, ge=1, le=10000)
+    cycles: int = Field(default=4, ge=1, le=10000, description="cycles averaged per point")
     settle: Duration = Field(default=0.02, ge=0, description="wait after each current change")
 
     @field_validator("pattern")
@@ -65,8 +68,11 @@ class Alternation(Strict):
 
 
 class Readings(Strict):
-    per_step: int = Field(default=1, ge=1, le=1000)
-    channels: list[str] = Field(min_length=1)
+    """What is read at each step of the pattern."""
+
+    per_step: int = Field(default=1, ge=1, le=1000,
+                          description="readings per channel at each step, averaged")
+    channels: list[str] = Field(min_length=1, description="the rig's voltmeters to read, by name")
 
     @field_validator("channels")
     @classmethod
@@ -103,7 +109,7 @@ READINGS = TableSchema(
         Column("voltage_V", "double", "V", "the reading"),
         *readback_columns("at this step"),
         Column("flags", "string", "",
-               "'|'-separated problems: retry, compliance, instrument_error"),
+               "'|'-separated problems: retry, compliance, instrument_error, wait_timeout"),
     ),
 )
 
