@@ -176,6 +176,69 @@ def test_schema_rejects_what_the_loader_rejects(schemas: dict[str, dict[str, Any
     assert not _valid(bad_loop, schema, schema)
 
 
+def _quantity_properties(schema: dict[str, Any]) -> list[tuple[str, dict[str, Any]]]:
+    """(name, property) of every quantity key (a string with a unit example) in the schema."""
+    found = []
+    for definition in [schema, *schema.get("$defs", {}).values()]:
+        for name, prop in definition.get("properties", {}).items():
+            for option in [prop, *prop.get("anyOf", [])]:
+                if option.get("type") == "string" and option.get("examples"):
+                    found.append((name, prop))
+    return found
+
+
+@pytest.mark.parametrize("kind", ["protocol", "rig"])
+def test_schema_defaults_of_quantities_carry_their_unit(
+    kind: str, schemas: dict[str, dict[str, Any]]
+) -> None:
+    quantities = _quantity_properties(schemas[kind])
+    assert len(quantities) >= 5
+    for name, prop in quantities:
+        default = prop.get("default")
+        assert default is None or isinstance(default, str), f"{name}: bare default {default!r}"
+
+
+def test_a_protocol_of_schema_defaults_is_accepted_and_means_the_defaults(
+    schemas: dict[str, dict[str, Any]], tmp_path: Path, cli: Cli
+) -> None:
+    from acquire.inputs.load import load_protocol
+
+    schema = schemas["protocol"]
+    given = load_document(PROTOCOLS / "angle_scan.yaml").data
+    written = {key: prop["default"] for key, prop in schema["properties"].items()
+               if "default" in prop and prop["default"] is not None}
+    assert {"waits", "finish", "on_problem", "alternation"} <= set(written)
+    protocol = {**given, **written}
+    path = tmp_path / "defaults.yaml"
+    path.write_text(yaml.safe_dump(protocol, sort_keys=False), encoding="utf-8")
+    result = cli(["check", str(path), "--rig", str(SIMULATED_RIG)])
+    assert result.code == 0, result.err
+    # Every default copied from the schema means what leaving the key out means.
+    explicit = load_protocol(path).protocol
+    fields = type(explicit).model_fields
+    for key in written:
+        assert getattr(explicit, key) == fields[key].get_default(call_default_factory=True), key
+
+
+def test_a_rig_entry_of_schema_defaults_means_the_defaults(
+    schemas: dict[str, dict[str, Any]], tmp_path: Path
+) -> None:
+    from acquire.inputs.load import load_rig
+
+    schema = schemas["rig"]
+    spec = schema["$defs"]["VoltmeterSpec"]["properties"]
+    defaults = {key: prop["default"] for key, prop in spec.items()
+                if prop.get("default") not in (None, {}) and key != "limits"}
+    assert defaults["timeout"] == "5 s" and defaults["latency"] == "0.002 s"
+    rig = yaml.safe_load(SIMULATED_RIG.read_text(encoding="utf-8"))
+    rig["instruments"]["vxx"].update(defaults)
+    path = tmp_path / "rig.yaml"
+    path.write_text(yaml.safe_dump(rig, sort_keys=False), encoding="utf-8")
+    explicit = load_rig(path).rig.instruments["vxx"]
+    implicit = load_rig(SIMULATED_RIG).rig.instruments["vxx"]
+    assert explicit == implicit
+
+
 # --- the console entry, in a real subprocess ---------------------------------------------------
 
 

@@ -51,35 +51,60 @@ def cmd_estimate(args: argparse.Namespace) -> int:
 
 
 def cmd_schema(args: argparse.Namespace) -> int:
-    from acquire.modes import mode_named
-    from drivers.rig import Rig
+    from acquire.reference.schema import SCHEMA_NAMES, schema_named
 
-    Protocol = mode_named("dc_reversal").protocol_model
-
+    names = [args.kind] if args.kind else list(SCHEMA_NAMES)
+    if args.out is None:
+        # To stdout, one document: the one named (the protocol's by default).
+        print(json.dumps(schema_named(names[0] if args.kind else "protocol"), indent=2))
+        return EXIT_DONE
     out = Path(args.out)
     out.mkdir(parents=True, exist_ok=True)
-    for name, model in (("protocol", Protocol), ("rig", Rig)):
-        schema = model.model_json_schema(by_alias=True)
-        schema["$schema"] = "https://json-schema.org/draft/2020-12/schema"
-        # A file may extend a base file (see acquire.yaml_source); its required keys may then
-        # all come from the base, so they are required only of a file without 'extends'.
-        schema["properties"] = {
-            "extends": {"type": "string", "description": "path of a base file, relative to this"},
-            "extends_anywhere": {"type": "boolean", "description": "let `extends` leave this "
-                                 "file's folder (only in the file given on the command line)"},
-            **schema["properties"],
-        }
-        required = schema.pop("required", [])
-        schema["if"] = {"required": ["extends"]}
-        schema["else"] = {"required": required}
+    for name in names:
         target = out / f"{name}.schema.json"
-        target.write_text(json.dumps(schema, indent=2) + "\n", encoding="utf-8")
+        target.write_text(json.dumps(schema_named(name), indent=2) + "\n", encoding="utf-8")
         print(f"wrote {target}")
+    return EXIT_DONE
+
+
+def cmd_docs(args: argparse.Namespace) -> int:
+    from acquire.reference import stale_docs, write_docs
+
+    if args.check is not None:
+        stale = stale_docs(Path(args.check))
+        if stale:
+            print(f"stale: {', '.join(stale)} in {args.check} differ from the code; "
+                  f"regenerate with 'flipsweep docs --out {args.check}'", file=sys.stderr)
+            return EXIT_FAILURE
+        print(f"ok: the generated pages in {args.check} match the code")
+        return EXIT_DONE
+    for path in write_docs(Path(args.out)):
+        print(f"wrote {path}")
     return EXIT_DONE
 
 
 def _add_common(parser: argparse.ArgumentParser) -> None:
     parser.add_argument("--debug", action="store_true", help="show Python tracebacks")
+
+
+SIM_RIG = "protocols/rigs/simulated.yaml"
+# One example per command, shown at the end of its --help.
+EXAMPLES: dict[str, str] = {
+    "check": f"flipsweep check protocols/angle_scan.yaml --rig {SIM_RIG} --show",
+    "estimate": f"flipsweep estimate protocols/angle_scan.yaml --rig {SIM_RIG}",
+    "schema": "flipsweep schema --out schemas",
+    "docs": "flipsweep docs --check docs",
+    "run": f"flipsweep run protocols/angle_scan.yaml --rig {SIM_RIG} --simulate --seed 7 "
+           "--out runs/demo",
+    "resume": "flipsweep resume runs/demo",
+    "status": "flipsweep status runs/demo",
+    "reduce": "flipsweep reduce runs/demo",
+    "fit": "flipsweep fit runs/demo --field-form linear --heating-warn 2",
+    "report": "flipsweep report runs/demo",
+    "instruments": f"flipsweep instruments --rig {SIM_RIG}",
+    "serve": f"flipsweep serve {SIM_RIG} --protocol protocols/current_ladder.yaml "
+             "--write-rig /tmp/lan_rig.yaml",
+}
 
 
 def build_parser(
@@ -93,23 +118,43 @@ def build_parser(
     parser.add_argument("--version", action="version", version=f"flipsweep {__version__}")
     sub = parser.add_subparsers(dest="command", required=True, metavar="COMMAND")
 
-    def add(name: str, help_text: str) -> argparse.ArgumentParser:
-        command = sub.add_parser(name, help=help_text, description=help_text)
+    def add(name: str, help_text: str, example: str = "") -> argparse.ArgumentParser:
+        example = example or EXAMPLES.get(name, "")
+        command = sub.add_parser(
+            name, help=help_text, description=help_text,
+            epilog=f"example:\n  {example}" if example else None,
+            formatter_class=argparse.RawDescriptionHelpFormatter,
+        )
         _add_common(command)
         command.set_defaults(handler=commands[name])
         return command
 
     check = add("check", "validate a protocol (and rig); exit 0, or 2 with one clear line")
-    check.add_argument("protocol")
-    check.add_argument("--rig")
-    check.add_argument("--show", action="store_true", help="print the merged, normalised protocol")
+    check.add_argument("protocol", help="the protocol file (YAML)")
+    check.add_argument("--rig", help="the rig file: also check every value against its limits")
+    check.add_argument("--show", action="store_true",
+                       help="print the merged, normalised protocol (SI values) as run.json "
+                            "stores it, with every default filled in")
 
     estimate = add("estimate", "points, readings, duration with breakdown, peak current density")
-    estimate.add_argument("protocol")
-    estimate.add_argument("--rig")
+    estimate.add_argument("protocol", help="the protocol file (YAML)")
+    estimate.add_argument("--rig", help="the rig file: its ramp rates, speeds and timings "
+                                        "(without it, typical values)")
 
-    schema = add("schema", "write JSON Schemas of protocol and rig files for editors")
-    schema.add_argument("--out", default=".", help="folder for the schema files")
+    schema = add("schema", "JSON Schema of the protocol or rig file, for editors: printed, "
+                           "or written with --out")
+    schema.add_argument("kind", nargs="?", choices=["protocol", "rig"],
+                        help="which schema (default: the protocol's to stdout, both with --out)")
+    schema.add_argument("--out", metavar="DIR",
+                        help="write <kind>.schema.json into this folder instead of printing")
+
+    docs = add("docs", "write the reference pages generated from the code (protocol, rig and "
+                       "output references), or check that they are current")
+    target = docs.add_mutually_exclusive_group(required=True)
+    target.add_argument("--out", metavar="DIR", help="write protocol.md, rig.md and output.md "
+                                                     "into this folder (the project's: docs)")
+    target.add_argument("--check", metavar="DIR",
+                        help="exit 1 if the pages in this folder differ from the code")
 
     for name, extra in EXTRA_COMMANDS.items():
         if name in commands:
@@ -126,6 +171,7 @@ def _commands() -> dict[str, Callable[[argparse.Namespace], int]]:
         "check": cmd_check,
         "estimate": cmd_estimate,
         "schema": cmd_schema,
+        "docs": cmd_docs,
     }
     from acquire.cli import run_commands, serve
 
