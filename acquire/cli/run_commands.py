@@ -12,7 +12,7 @@ def cmd_run(args: argparse.Namespace) -> int:
     from acquire.runtime.session import RunOptions, start_run
 
     options = RunOptions(simulate=args.simulate, seed=args.seed, realtime=args.realtime,
-                         progress=not args.quiet)
+                         progress=not args.quiet, operator=args.operator)
     return start_run(Path(args.protocol), Path(args.rig), Path(args.out), options)
 
 
@@ -64,9 +64,13 @@ def cmd_status(args: argparse.Namespace) -> int:
 
 def cmd_fit(args: argparse.Namespace) -> int:
     from acquire.analysis import fit_run
+    from acquire.analysis.fit_summary import fit_summary
+    from acquire.analysis.fit_tables import read_fits_table
 
     path = fit_run(Path(args.dir), angle_offset=args.angle_offset, field_form=args.field_form,
                    dR_dT_ohm_per_K=args.dr_dt, heating_warn_K=args.heating_warn)
+    for line in fit_summary(read_fits_table(path)):
+        print(line)
     print(f"wrote {path}")
     return 0
 
@@ -93,14 +97,20 @@ COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
 
 def _run_args(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
     run = add("run", "run a protocol on a rig (or rehearse it with --simulate)")
-    run.add_argument("protocol")
-    run.add_argument("--rig", required=True)
-    run.add_argument("--out", required=True, help="new folder for this run's files")
+    run.add_argument("protocol", help="the protocol file (YAML)")
+    run.add_argument("--rig", required=True, help="the rig file (YAML): instruments and limits")
+    run.add_argument("--out", required=True, metavar="DIR",
+                     help="new folder for this run's files (must not hold a run already)")
     run.add_argument("--simulate", action="store_true",
                      help="simulated instruments with the rig's limits, on a virtual clock")
-    run.add_argument("--seed", type=int, help="noise seed of the simulated sample")
-    run.add_argument("--realtime", action="store_true", help="simulate in real time")
+    run.add_argument("--seed", type=int, metavar="N",
+                     help="noise seed of the simulated sample (with --simulate)")
+    run.add_argument("--realtime", action="store_true",
+                     help="simulate in real time instead of on the virtual clock")
     run.add_argument("--quiet", action="store_true", help="no progress bar")
+    run.add_argument("--operator", metavar="NAME",
+                     help="who runs it, recorded in run.json as host.user (default: your login "
+                          "name; --operator '' records none)")
 
 
 AddCommand = Callable[[str, str], argparse.ArgumentParser]
@@ -109,23 +119,33 @@ AddCommand = Callable[[str, str], argparse.ArgumentParser]
 def _dir_command(name: str, text: str) -> Callable[[AddCommand], None]:
     def add_arguments(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
         command = add(name, text)
-        command.add_argument("dir")
+        command.add_argument("dir", help="the run folder (the --out of 'flipsweep run')")
         if name == "resume":
             command.add_argument("--quiet", action="store_true", help="no progress bar")
         if name == "fit":
-            command.add_argument("--angle-offset", action="store_true",
-                                 help="refit angle sweeps with the mounting offset removed")
-            command.add_argument("--field-form", default="inverse", choices=["inverse", "linear"])
-            command.add_argument("--dr-dt", type=float, default=None,
-                                 help="dR/dT in ohm/K when the data have no temperature series")
-            command.add_argument("--heating-warn", type=float, default=5.0,
-                                 help="warn above this Joule temperature rise, K")
+            command.add_argument(
+                "--angle-offset", action="store_true",
+                help="estimate the sample's mounting offset from the 2phi phase of the angle "
+                     "sweeps and refit them with it removed (angle_offset_applied_deg)")
+            command.add_argument(
+                "--field-form", default="inverse", choices=["inverse", "linear"],
+                help="model of the unidirectional part against field: 'inverse' "
+                     "A + C*Bs/(|B| + Bs), 'linear' A + slope*|B| (default: inverse)")
+            command.add_argument(
+                "--dr-dt", type=float, default=None, metavar="OHM_PER_K",
+                help="the sample's dR/dT in ohm/K, to turn the heating slope into a "
+                     "temperature rise when the run has no temperature series of its own")
+            command.add_argument(
+                "--heating-warn", type=float, default=5.0, metavar="K",
+                help="flag a Joule temperature rise at the largest current above this many "
+                     "kelvin (default: 5)")
     return add_arguments
 
 
 def _instruments_args(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
     command = add("instruments", "list VISA resources and ask each for its identity")
-    command.add_argument("--rig")
+    command.add_argument("--rig", help="ask the rig's instruments at their addresses (without "
+                                       "it: every resource pyvisa-py finds)")
 
 
 ARGUMENTS: dict[str, Callable[[AddCommand], None]] = {

@@ -86,7 +86,7 @@ def cmd_serve(args: argparse.Namespace) -> int:
 def add_serve_arguments(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
     serve = add("serve", "serve a simulated rig as SCPI over TCP on 127.0.0.1, one port per "
                          "instrument, with optional fault injection")
-    serve.add_argument("rig")
+    serve.add_argument("rig", help="the rig file whose instruments are served")
     serve.add_argument("--protocol", required=True,
                        help="its sample section defines the simulated device")
     serve.add_argument("--port-base", type=int, default=DEFAULT_PORT_BASE, metavar="PORT",

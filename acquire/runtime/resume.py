@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import csv
+import sys
 from pathlib import Path
 
 import pandas as pd
@@ -10,6 +11,7 @@ import pandas as pd
 from acquire.errors import InputError
 from acquire.inputs.load import check_pair, load_protocol, load_rig
 from acquire.plan.estimate import estimate
+from acquire.runtime.cautions import CAUTION
 from acquire.runtime.clock import Clock, RealClock, VirtualClock
 from acquire.runtime.session import RunOptions, _execute
 from acquire.store.append_table import atomic_write_text
@@ -107,6 +109,9 @@ def _resume_locked(folder: RunFolder, progress: bool) -> int:
     folder.write_run_json(record)
     options = RunOptions(simulate=record.options.simulate, seed=record.options.seed,
                          realtime=record.options.realtime, progress=progress)
+    if not options.simulate:
+        # Real instruments: the operator sees the cautions again before anything is sent.
+        print(CAUTION, file=sys.stderr)
     clock: Clock
     resumed_at = _last_time(folder.path / readings_schema.file_name, readings_schema,
                             last_clock)

@@ -58,6 +58,7 @@ class Interrupted(Exception):
 class RunOptions:
     simulate: bool = False
     seed: int | None = None
+    operator: str | None = None  # run.json's host.user: None records the login name
     realtime: bool = False
     progress: bool = True
 
@@ -209,7 +210,7 @@ def start_run(protocol_path: Path, rig_path: Path, out: Path, options: RunOption
                                 duration_s=estimated.duration_s,
                                 breakdown_s=estimated.breakdown_s),
         software=software_versions(),
-        host=host_description(),
+        host=host_description(options.operator),
         history=[HistoryEvent(event="start", utc=utc_now())],
     )
     with folder.locked():

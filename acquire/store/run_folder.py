@@ -165,9 +165,14 @@ class RunFolder:
             return None
 
 
-def host_description() -> dict[str, str]:
-    return {"host": socket.gethostname(), "platform": platform.platform(),
-            "user": os.environ.get("USER", "")}
+def host_description(operator: str | None = None) -> dict[str, str]:
+    """The computer that ran the run and, as `user`, who ran it: `operator`, or the login name
+    when it is None; an empty operator records no one (`flipsweep run --operator ''`)."""
+    described = {"host": socket.gethostname(), "platform": platform.platform()}
+    user = os.environ.get("USER", "") if operator is None else operator
+    if user:
+        described["user"] = user
+    return described
 
 
 def attach_log(folder: RunFolder) -> logging.Handler:
