@@ -39,7 +39,7 @@ sample:
 loops:
   - {{axis: temperature, start: 10 K, stop: 300 K, num: {outer}}}
   - {{axis: field, start: -1 T, stop: 1 T, num: {inner}}}
-  - {{axis: angle, start: 0 deg, stop: 350 deg, num: {inner}, snake: true}}
+  - {{axis: angle, start: 0 deg, stop: 350 deg, num: {inner}, alternate_direction: true}}
   - {{axis: current, start: 0.5 mA, stop: 5 mA, num: {outer}}}
 alternation: {{pattern: "+0-", cycles: 2, settle: 5 ms}}
 readings: {{per_step: 1, channels: [vxx]}}

@@ -39,12 +39,13 @@ CASES = {
                      "{axis: field, values: [0.1 T, 0.5 T, -0.2 T]}",
                      "{axis: angle, start: 0 deg, stop: 90 deg, step: 30 deg}",
                      "{axis: current, values: [1 mA, 2 mA]}"),
-    "snake inner": ("{axis: field, values: [0 T, 1 T, 0.3 T]}",
-                    "{axis: angle, values: [0 deg, 45 deg, 180 deg, 10 deg], snake: true}",
-                    "{axis: current, values: [1 mA]}"),
-    "snake with an odd count of passes": (
+    "alternating inner": ("{axis: field, values: [0 T, 1 T, 0.3 T]}",
+                          "{axis: angle, values: [0 deg, 45 deg, 180 deg, 10 deg],"
+                          " alternate_direction: true}",
+                          "{axis: current, values: [1 mA]}"),
+    "alternating with an odd count of passes": (
         "{axis: temperature, values: [5 K, 6 K, 7 K]}",
-        "{axis: angle, values: [0 deg, 90 deg], snake: true}",
+        "{axis: angle, values: [0 deg, 90 deg], alternate_direction: true}",
         "{axis: current, values: [1 mA]}"),
     "there and back": ("{axis: field, start: -1 T, stop: 1 T, step: 0.5 T, return: true}",
                        "{axis: current, values: [1 mA, 3 mA]}"),

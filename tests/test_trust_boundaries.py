@@ -22,7 +22,7 @@ Write = Callable[[str, str], Path]
 
 
 @pytest.mark.parametrize("resource", [
-    "GPIB0::12::INSTR", "GPIB0::30::5::INSTR", "GPIB::1::INSTR", "TCPIP0::10.0.0.21::INSTR",
+    "GPIB0::5::INSTR", "GPIB0::30::5::INSTR", "GPIB::1::INSTR", "TCPIP0::10.0.0.21::INSTR",
     "TCPIP0::lab-magnet.local::inst0::INSTR", "TCPIP0::127.0.0.1::5025::SOCKET",
     "ASRL3::INSTR", "ASRL/dev/ttyUSB0::INSTR", "USB0::0x1234::0x5678::SN0001::INSTR",
 ])

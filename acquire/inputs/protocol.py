@@ -225,7 +225,7 @@ DensityLimit = Annotated[
 
 class SampleLimits(Strict):
     """What the device survives: checked before anything is sent, on top of the rig's
-    limits. At least one of `current` and `current_density` is required."""
+    limits. At least one of `current`, `current_density` and `power` is required."""
 
     current: Current | None = Field(
         default=None, gt=0, description="largest current amplitude (the peak in modes with one)"

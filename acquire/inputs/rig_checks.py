@@ -13,7 +13,7 @@ from pyvisa import rname
 
 # A rig template's address to be filled in, e.g. "GPIB0::<address>::INSTR".
 PLACEHOLDER_MARKS = ("<", ">")
-RESOURCE_EXAMPLES = ("'GPIB0::12::INSTR', 'TCPIP0::10.0.0.21::INSTR', "
+RESOURCE_EXAMPLES = ("'GPIB0::5::INSTR', 'TCPIP0::10.0.0.21::INSTR', "
                      "'TCPIP0::10.0.0.21::5025::SOCKET', 'ASRL/dev/ttyUSB0::INSTR'")
 GPIB_PRIMARY = range(0, 31)  # IEEE 488.1: primary addresses 0..30
 GPIB_SECONDARY = range(0, 32)  # VISA numbers secondary addresses 0..31

@@ -38,8 +38,8 @@ def _axis_moves_s(plans: Sequence[LoopPlan], depth: int,
                   move: Callable[[float | None, float], float], hold_s: float,
                   start: float | None) -> tuple[float, float]:
     """(moving, holding) seconds of the axis of loop `depth` over the whole night, from the
-    counts alone: the inner loops never move it, and it runs the same pass (forward, or for a
-    snake loop, alternately backward) once per combination of the outer loops. Equal to
+    counts alone: the inner loops never move it, and it runs the same pass (forward, or with
+    `alternate_direction`, alternately backward) once per combination of the outer loops. Equal to
     walking every step (schedule.iterate_steps) and summing the moves; O(values) not O(points)."""
     values = plans[depth].values
     passes = prod(len(plan.values) for plan in plans[:depth])
@@ -47,7 +47,7 @@ def _axis_moves_s(plans: Sequence[LoopPlan], depth: int,
     backward = [(b, a) for a, b in reversed(forward)]
     moving = move(start, values[0])  # the first point always sets every swept axis
     moves = 1
-    if plans[depth].snake:
+    if plans[depth].alternate_direction:
         # pass k runs backward when k is odd; a pass ends where the next one starts
         forward_passes, backward_passes = (passes + 1) // 2, passes // 2
         boundary: list[tuple[float, float]] = []

@@ -21,7 +21,8 @@ key's name), as run.json stores it.
   written in T, mT, G, Oe, A/m or kA/m and are stored as mu0*H in tesla (300 Oe = 30 mT).
 - `extends: base.yaml` (a path relative to the file) starts from another protocol and
   overrides its keys: mappings merge key by key, any other value (a list such as `loops`)
-  replaces the base's.
+  replaces the base's. The base must lie in the folder of the file given on the command line
+  (or below it) unless that file says `extends_anywhere: true`.
 - A key the table does not list is an error (with a did-you-mean), so a typo cannot pass
   silently.
 - A default written in a table is what the key means when it is left out; `required` keys
