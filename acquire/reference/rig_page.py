@@ -16,7 +16,11 @@ from drivers.roles import all_roles
 from drivers.roles.base import Role
 from drivers.spec import COMMON_KEYS, InstrumentSpec
 from sim_instruments.sample_model import SampleParameters
-from sim_instruments.world import WORLD_SETTINGS
+from sim_instruments.world import (
+    START_TEMPERATURE_K,
+    TEMPERATURE_TIME_CONSTANT_S,
+    WORLD_SETTINGS,
+)
 
 INTRO = """
 A rig file names each instrument, its role, how to reach it (its VISA resource) and its
@@ -108,10 +112,17 @@ def _role_section(role: Role[Any]) -> str:
     return "\n".join(parts)
 
 
+def _shown(value: object) -> str:
+    return f"{value:.6g}" if isinstance(value, float) else str(value)
+
+
 def _simulation_section() -> str:
     parameters = SampleParameters()
-    rows = [(f"`{name}`", "world", "") for name in WORLD_SETTINGS]
-    rows += [(f"`{name}`", "sample model", f"`{getattr(parameters, name)!r}`")
+    world = {"start_temperature_K": START_TEMPERATURE_K,
+             "temperature_time_constant_s": TEMPERATURE_TIME_CONSTANT_S}
+    rows = [(f"`{name}`", "world", f"`{world[name]:.6g}`" if name in world else "")
+            for name in WORLD_SETTINGS]
+    rows += [(f"`{name}`", "sample model", f"`{_shown(getattr(parameters, name))}`")
              for name in SampleParameters.field_names()]
     return "\n".join([
         "## `simulation:` (simulated runs only)", "",
