@@ -67,15 +67,15 @@ def _allow_extends(schema: dict[str, Any]) -> None:
     schema["else"] = {"required": required}
 
 
-def _finished(top: dict[str, Any], definitions: dict[str, Any]) -> None:
-    for definition in definitions.values():
-        _with_unit_defaults(definition, definitions)
-    _with_unit_defaults(top, definitions)
+def _unit_defaults_everywhere(schemas: list[dict[str, Any]], definitions: dict[str, Any]
+                              ) -> None:
+    for schema in [*schemas, *definitions.values()]:
+        _with_unit_defaults(schema, definitions)
 
 
 def rig_schema() -> dict[str, Any]:
     schema = copy.deepcopy(Rig.model_json_schema(by_alias=True))
-    _finished(schema, schema.get("$defs", {}))
+    _unit_defaults_everywhere([schema], schema.get("$defs", {}))
     _allow_extends(schema)
     return {"$schema": DRAFT, **schema}
 
@@ -85,7 +85,7 @@ def protocol_schema() -> dict[str, Any]:
     models = [(mode.protocol_model, "validation") for mode in all_modes()]
     keys, shared = models_json_schema(models, by_alias=True)  # type: ignore[arg-type]
     definitions: dict[str, Any] = copy.deepcopy(shared.get("$defs", {}))
-    _finished({}, definitions)
+    _unit_defaults_everywhere([], definitions)
     refs = []
     for model, _ in models:
         name = keys[(model, "validation")]["$ref"].rsplit("/", 1)[-1]
