@@ -113,7 +113,9 @@ def _role_section(role: Role[Any]) -> str:
 
 
 def _shown(value: object) -> str:
-    return f"{value:.6g}" if isinstance(value, float) else str(value)
+    if value is None:
+        return "derived"  # from the protocol's sample (MODEL.md says how)
+    return f"`{value:.6g}`" if isinstance(value, float) else f"`{value}`"
 
 
 def _simulation_section() -> str:
@@ -122,13 +124,14 @@ def _simulation_section() -> str:
              "temperature_time_constant_s": TEMPERATURE_TIME_CONSTANT_S}
     rows = [(f"`{name}`", "world", f"`{world[name]:.6g}`" if name in world else "")
             for name in WORLD_SETTINGS]
-    rows += [(f"`{name}`", "sample model", f"`{_shown(getattr(parameters, name))}`")
+    rows += [(f"`{name}`", "sample model", _shown(getattr(parameters, name)))
              for name in SampleParameters.field_names()]
     return "\n".join([
         "## `simulation:` (simulated runs only)", "",
         "Settings of the simulated sample and world for `flipsweep run --simulate` and "
         "`flipsweep serve`, in SI units with the unit in the name; a real run ignores them. "
-        "The geometry and layers come from the protocol's `sample:` section unless set here. "
+        "The geometry, the layers and the carrier's material come from the protocol's `sample:` "
+        "section unless set here; `derived` values follow from them. "
         "sim_instruments/MODEL.md gives each parameter's meaning. An unknown name is an error "
         "at `check`.", "",
         markdown.table(("name", "of", "default"), rows), "",
