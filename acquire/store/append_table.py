@@ -1,7 +1,9 @@
-"""Append-only CSV tables, flushed and fsynced at every point so a power cut loses nothing."""
+"""Append-only CSV tables: rows reach the operating system within seconds of being taken and
+are fsynced at every point, so a crash, a kill or a power cut loses nothing worth keeping."""
 
 from __future__ import annotations
 
+import contextlib
 import math
 import os
 from collections.abc import Iterable, Sequence
@@ -9,7 +11,14 @@ from pathlib import Path
 from typing import IO
 
 from acquire.store import csvw
+from acquire.store.safe_files import atomic_write_text, open_for_append
 from acquire.store.tables import TableSchema
+
+__all__ = ["AppendTable", "atomic_write_text", "format_cell"]
+
+# Rows inside a long point reach the operating system at least this often (run clock), so a
+# kill in the middle of a point loses at most this much of it.
+FLUSH_INTERVAL_S = 2.0
 
 
 def format_cell(value: object) -> str:
@@ -32,7 +41,8 @@ class AppendTable:
         self.path = folder / schema.file_name
         self.schema = schema
         fresh = not self.path.exists() or self.path.stat().st_size == 0
-        self._file: IO[str] = open(self.path, "a", encoding="utf-8", newline="")  # noqa: SIM115
+        self._file: IO[str] = open_for_append(self.path)
+        self._flushed_at_s = -math.inf
         if fresh:
             self._file.write(csvw.header(list(schema.columns)) + "\n")
             csvw.write_metadata(self.path, list(schema.columns), schema.description)
@@ -48,6 +58,13 @@ class AppendTable:
         """Rows already formatted by the caller, each ending in a newline."""
         self._file.writelines(lines)
 
+    def flush_if_due(self, run_clock_s: float) -> None:
+        """Hand the rows to the operating system if FLUSH_INTERVAL_S of run clock has passed
+        since the last time (a kill then loses nothing; fsync waits for the point's end)."""
+        if run_clock_s - self._flushed_at_s >= FLUSH_INTERVAL_S:
+            self._file.flush()
+            self._flushed_at_s = run_clock_s
+
     def commit(self, durable: bool = True) -> None:
         """Flush to the operating system (survives a crash or kill); fsync also survives a
         power cut."""
@@ -56,17 +73,11 @@ class AppendTable:
             os.fsync(self._file.fileno())
 
     def close(self) -> None:
-        if not self._file.closed:
+        """Commit and close; the file is closed even if the commit fails (disk full)."""
+        if self._file.closed:
+            return
+        try:
             self.commit()
-            self._file.close()
-
-
-def atomic_write_text(path: Path, text: str, durable: bool = True) -> None:
-    """Write via a temporary file and rename, so a reader never sees half a file."""
-    temporary = path.with_name(path.name + ".tmp")
-    with open(temporary, "w", encoding="utf-8") as handle:
-        handle.write(text)
-        handle.flush()
-        if durable:
-            os.fsync(handle.fileno())
-    os.replace(temporary, path)
+        finally:
+            with contextlib.suppress(OSError):  # what could not be written is lost either way
+                self._file.close()

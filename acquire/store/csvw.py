@@ -6,6 +6,8 @@ import json
 from dataclasses import dataclass
 from pathlib import Path
 
+from acquire.store.safe_files import atomic_write_text
+
 # CSVW datatypes are XML Schema names (W3C, "Metadata Vocabulary for Tabular Data", sec. 5.11).
 XSD_TYPES = {"integer", "double", "string", "dateTime", "boolean"}
 
@@ -48,7 +50,7 @@ def write_metadata(csv_path: Path, columns: list[Column], description: str) -> P
     """Write `<csv>-metadata.json` beside `csv_path` (the CSVW default location)."""
     target = csv_path.with_name(csv_path.name + "-metadata.json")
     document = metadata_document(csv_path.name, columns, description)
-    target.write_text(json.dumps(document, indent=2) + "\n", encoding="utf-8")
+    atomic_write_text(target, json.dumps(document, indent=2) + "\n")
     return target
 
 

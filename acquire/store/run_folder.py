@@ -2,6 +2,7 @@
 
 from __future__ import annotations
 
+import contextlib
 import json
 import logging
 import os
@@ -9,6 +10,7 @@ import platform
 import shutil
 import socket
 import sys
+import tempfile
 from collections.abc import Iterator
 from contextlib import contextmanager
 from dataclasses import dataclass
@@ -18,9 +20,9 @@ from pathlib import Path
 from typing import Any
 
 from acquire.errors import InputError
-from acquire.store.append_table import atomic_write_text
 from acquire.store.file_lock import try_lock, unlock
 from acquire.store.run_record import RunRecord, parse_run_record
+from acquire.store.safe_files import atomic_write_text, open_for_append, open_for_update
 from acquire.version import __version__
 
 LIBRARIES = ("numpy", "pandas", "pint", "pydantic", "pyvisa", "pyvisa-sim", "pyvisa-py", "scipy")
@@ -73,15 +75,25 @@ class RunFolder:
             )
         try:
             self.path.mkdir(parents=True, exist_ok=True)
-            probe = self.path / ".write-test"
-            probe.write_text("ok", encoding="utf-8")
-            probe.unlink()
         except OSError as error:
             raise InputError(
                 f"the output folder cannot be written ({error.strerror})", file=str(self.path),
                 key=("--out",), fix="choose a folder you can write to",
             ) from None
+        self.check_writable(("--out",))
         self.check_space(needed_bytes)
+
+    def check_writable(self, key: tuple[str, ...] = ()) -> None:
+        """Refuse (exit 2) a folder no file can be created in: read-only, or not ours."""
+        try:
+            descriptor, probe = tempfile.mkstemp(dir=self.path, prefix=".write-test.")
+            os.close(descriptor)
+            os.unlink(probe)
+        except OSError as error:
+            raise InputError(
+                f"the run folder cannot be written ({error.strerror})", file=str(self.path),
+                key=key, fix="make the folder writable (or copy it to a disk that is)",
+            ) from None
 
     def check_space(self, needed_bytes: int) -> None:
         free = shutil.disk_usage(self.path).free
@@ -93,23 +105,46 @@ class RunFolder:
                 file=str(self.path), key=("--out",), fix="free space or choose another disk",
             )
 
+    def require_folder(self) -> None:
+        """A clear error (exit 2) for a path that is not a folder at all."""
+        if not self.path.exists():
+            raise InputError("no such folder", file=str(self.path),
+                             fix="give the folder a run was started in (its --out)")
+        if not self.path.is_dir():
+            raise InputError("is a file, not a run folder", file=str(self.path),
+                             fix="give the folder a run was started in (its --out)")
+
     def read_run_json(self) -> RunRecord:
+        self.require_folder()
+        rebuild = (f"rebuild it with 'flipsweep resume {self.path} --rebuild-record "
+                   "--protocol PROTOCOL --rig RIG' (the files the run was started with)")
         try:
-            data = json.loads(self.run_json.read_text(encoding="utf-8"))
+            data = self.run_json.read_bytes()
         except FileNotFoundError:
             raise InputError(
                 "has no run.json, so it is not a flipsweep run folder", file=str(self.path),
-                fix="give the folder a run was started in",
+                fix="give the folder a run was started in; if run.json was lost, " + rebuild,
             ) from None
-        except json.JSONDecodeError as error:
-            raise InputError(
-                f"run.json is damaged ({error.msg})", file=str(self.run_json)
-            ) from None
+        except OSError as error:
+            raise InputError(f"run.json cannot be read ({error.strerror})",
+                             file=str(self.run_json), fix="check the file's permissions") from None
         try:
-            return parse_run_record(data)
+            if b"\0" in data:
+                raise ValueError("it holds NUL bytes, as a power cut can leave")
+            try:
+                parsed = json.loads(data.decode("utf-8"))
+            except UnicodeDecodeError:
+                raise ValueError("it is not UTF-8 text") from None
+            except json.JSONDecodeError as error:
+                raise ValueError(f"{error.msg} at line {error.lineno}") from None
+        except ValueError as error:
+            raise InputError(f"run.json is damaged ({error})", file=str(self.run_json),
+                             fix=rebuild) from None
+        try:
+            return parse_run_record(parsed)
         except ValueError as error:
             raise InputError(f"run.json is not a run record: {error}",
-                             file=str(self.run_json)) from None
+                             file=str(self.run_json), fix=rebuild) from None
 
     def write_run_json(self, record: RunRecord) -> None:
         atomic_write_text(self.run_json, json.dumps(record.to_json(), indent=2) + "\n")
@@ -129,7 +164,7 @@ class RunFolder:
         """Hold the folder for one process: a second `resume` while the run still goes would
         drive the same instruments twice and interleave the files. The kernel drops the lock
         when the process ends, however it ends (kill -9 included)."""
-        handle = open(self.lock_file, "a+", encoding="utf-8")  # noqa: SIM115 - held open
+        handle = open_for_update(self.lock_file)
         if not try_lock(handle):
             handle.seek(0)
             holder = handle.read().strip() or "another process"
@@ -150,7 +185,7 @@ class RunFolder:
 
     def is_running(self) -> bool:
         """True when a live process holds the folder's lock (on this machine)."""
-        if not self.lock_file.exists():
+        if not self.lock_file.is_file() or self.lock_file.is_symlink():
             return False
         with open(self.lock_file, encoding="utf-8") as handle:
             if not try_lock(handle):
@@ -160,9 +195,10 @@ class RunFolder:
 
     def read_status(self) -> dict[str, Any] | None:
         try:
-            return json.loads(self.status_json.read_text(encoding="utf-8"))
-        except (FileNotFoundError, json.JSONDecodeError):
+            status = json.loads(self.status_json.read_text(encoding="utf-8"))
+        except (OSError, UnicodeDecodeError, json.JSONDecodeError):
             return None
+        return status if isinstance(status, dict) else None
 
 
 def host_description(operator: str | None = None) -> dict[str, str]:
@@ -175,8 +211,18 @@ def host_description(operator: str | None = None) -> dict[str, str]:
     return described
 
 
+class RunLogHandler(logging.StreamHandler):  # type: ignore[type-arg]
+    """run.log; a line that cannot be written (disk full) is dropped without a traceback on
+    the terminal: the run's own failure handling says what happened, once."""
+
+    failed = False
+
+    def handleError(self, record: logging.LogRecord) -> None:
+        self.failed = True
+
+
 def attach_log(folder: RunFolder) -> logging.Handler:
-    handler = logging.FileHandler(folder.log, encoding="utf-8")
+    handler = RunLogHandler(open_for_append(folder.log))
     handler.setFormatter(logging.Formatter("%(asctime)s %(levelname)s %(message)s"))
     logger = logging.getLogger("flipsweep")
     logger.setLevel(logging.INFO)
@@ -187,3 +233,7 @@ def attach_log(folder: RunFolder) -> logging.Handler:
 def detach_log(handler: logging.Handler) -> None:
     logging.getLogger("flipsweep").removeHandler(handler)
     handler.close()
+    stream = getattr(handler, "stream", None)
+    if stream is not None:
+        with contextlib.suppress(OSError):  # a full disk: what is lost is lost
+            stream.close()
