@@ -49,6 +49,9 @@ class FaultPlan:
     # instrument name -> transactions it still handles before it stalls (0: stalled at once)
     stall_after: Mapping[str, int] = field(default_factory=dict)
     seed: int = 0
+    # instrument name -> {transaction number: fault}: a fault at a chosen reply (tests), on
+    # top of the random ones
+    scripted: Mapping[str, Mapping[int, Fault]] = field(default_factory=dict)
 
     @classmethod
     def from_rates(
@@ -84,7 +87,8 @@ class FaultPlan:
 
     @property
     def injects(self) -> bool:
-        return bool(self.drop_rate or self.garble_rate or self.late_rate or self.stall_after)
+        return bool(self.drop_rate or self.garble_rate or self.late_rate or self.stall_after
+                    or self.scripted)
 
 
 def parse_stall(text: str) -> tuple[str, int]:
@@ -140,12 +144,18 @@ class FaultInjector:
 
     def fault_for_reply(self, instrument: str, transaction: int) -> Fault:
         plan = self.plan
+        scripted = plan.scripted.get(instrument, {}).get(transaction, Fault.NONE)
         if not (plan.drop_rate or plan.garble_rate or plan.late_rate):
-            return Fault.NONE
+            if scripted is not Fault.NONE:
+                with self._lock:
+                    self._record(instrument, transaction, scripted)
+            return scripted
         with self._lock:
             draw = self._generators[instrument].random()
-            fault = Fault.NONE
-            if draw < plan.drop_rate:
+            fault = scripted
+            if fault is not Fault.NONE:
+                pass  # the scripted fault; the draw is still taken, so the others stay put
+            elif draw < plan.drop_rate:
                 fault = Fault.DROP
             elif draw < plan.drop_rate + plan.garble_rate:
                 fault = Fault.GARBLE

@@ -40,7 +40,7 @@ from tests.test_socket_server import POINTS, PROTOCOL, RIG, assert_complete, run
 # Short backoffs so that a real-clock run with faults takes seconds; the schedule's length (the
 # number of retries) stays the default's.
 TEST_BACKOFF_S = (0.01, 0.02, 0.05)
-RETRY_LINE = re.compile(r"; retry (\d) of 3 in ")
+RETRY_LINE = re.compile(r"; retry (\d) of 2 in ")
 
 
 @pytest.fixture
@@ -187,9 +187,13 @@ def test_a_stalled_voltmeter_stops_the_run_safely_and_resume_completes_it(
         assert 0 < status["points_done"] < POINTS
         log = (out / "run.log").read_text()
         assert "vxx: no reply within the 0.5 s timeout" in log
-        assert "still failing after 3 retries" in log
-        assert len(retry_lines(out)) == 3
-        # Four timeouts of 0.5 s and the backoffs, plus the run's own second: well under 10 s.
+        # Two retries of the call, the point measured again, two more retries: the sixth
+        # failure in a row makes vxx silent.
+        assert "still failing after 2 retries with reconnect; measuring point" in log
+        assert "vxx stays silent (6 failed calls in a row" in log
+        assert len(retry_lines(out)) == 4
+        assert "safe state verified (source: current 0 mA, output off)" in log
+        # Six timeouts of 0.5 s and the backoffs, plus the run's own second: well under 10 s.
         assert elapsed < 10.0
         served.answer_again("vxx")
         assert run_cli(["resume", str(out), "--quiet"]).code == 0
@@ -233,8 +237,10 @@ def simulate(protocol: Path, out: Path) -> int:
 def test_a_fault_during_a_move_repeats_the_move_and_flags_the_next_point(
     tmp_path: Path, monkeypatch: pytest.MonkeyPatch, field_protocol: Path
 ) -> None:
-    # A ten-minute backoff: on the virtual clock it costs no real time.
+    # A ten-minute backoff: on the virtual clock it costs no real time. (The magnet would count
+    # as silent after failing for 600 s; the limit is raised out of the way.)
     monkeypatch.setattr(Runner, "retry_backoff_s", (600.0, 600.0, 600.0))
+    monkeypatch.setattr(Runner, "silent_s", 1e6)
     faults = {3: CommunicationError("magnet", "FLD:NOW?", "no reply within the 5 s timeout"),
               4: InstrumentError("magnet", "FLD:NOW?", "unexpected reply: got '#~@'")}
     faulty_field_readback(monkeypatch, faults.get)
@@ -258,9 +264,13 @@ def test_a_persistent_fault_during_a_move_stops_the_run(
     calls = faulty_field_readback(monkeypatch, lambda n: fault if n >= 3 else None)
     out = tmp_path / "run"
     assert simulate(field_protocol, out) == 1
-    assert len(calls) == 2 + 4  # two good reads, then the first try and three retries
+    # Two good reads, then the first try and two retries, the move again, two more tries: the
+    # sixth failure in a row (commands sent in between are no answer) makes the magnet silent.
+    assert len(calls) == 2 + 6
     assert json.loads((out / "status.json").read_text())["state"] == "failed"
-    assert "move field to 0.1: magnet: no reply" in (out / "run.log").read_text()
+    log = (out / "run.log").read_text()
+    assert "move field to 0.1: magnet: no reply" in log
+    assert "magnet stays silent (6 failed calls in a row" in log
 
 
 # -- the safe shutdown ---------------------------------------------------------------------------
@@ -272,6 +282,8 @@ class Recorder:
         self.name = name
         self._calls = calls
         self._misbehave = misbehave or {}
+        self.level_A = 1e-3  # as a run leaves it
+        self.output = True
 
     def _record(self, method: str, value: Any = None) -> None:
         self._calls.append((self.name, method, value))
@@ -280,9 +292,19 @@ class Recorder:
 
     def set_current(self, amperes: float) -> None:
         self._record("set_current", amperes)
+        self.level_A = amperes
 
     def set_output(self, on: bool) -> None:
         self._record("set_output", on)
+        self.output = on
+
+    def read_current(self) -> float:
+        self._record("read_current")
+        return self.level_A
+
+    def output_is_on(self) -> bool:
+        self._record("output_is_on")
+        return self.output
 
     def set_target(self, tesla: float) -> None:
         self._record("set_target", tesla)
@@ -317,9 +339,13 @@ def test_shutdown_makes_the_current_safe_first(
     calls: list[tuple[str, str, Any]] = []
     instruments = {"source": Recorder("source", calls), "vxx": Recorder("vxx", calls),
                    "magnet": Recorder("magnet", calls), "cryo": Recorder("cryo", calls)}
-    assert runner_with(tmp_path, protocol, SIMULATED_RIG, instruments).shutdown() == []
+    report = runner_with(tmp_path, protocol, SIMULATED_RIG, instruments).shutdown()
+    assert report.ok and report.problems == []
+    # The source made safe and read back before anything else is touched.
     assert calls == [("source", "set_current", 0.0), ("source", "set_output", False),
+                     ("source", "read_current", None), ("source", "output_is_on", None),
                      ("magnet", "set_target", 0.0), ("cryo", "set_setpoint", 290.0)]
+    assert report.summary() == "safe state verified (source: current 0 mA, output off)"
 
 
 def test_shutdown_is_bounded_when_the_source_hangs_and_does_not_retry(
@@ -339,16 +365,25 @@ def test_shutdown_is_bounded_when_the_source_hangs_and_does_not_retry(
     }
     runner = runner_with(tmp_path, protocol, RIG, instruments)
     started = time.monotonic()
-    problems = runner.shutdown()
+    report = runner.shutdown()
+    problems = report.problems
     elapsed = time.monotonic() - started
     # The rig gives the source a 0.5 s timeout; the shutdown waits that plus its 0.5 s grace,
     # never the 30 s the source would hang.
     assert 1.0 <= elapsed < 5.0
     assert problems[0] == "current to zero: no answer from source within 1 s"
     assert problems[1] == "output off: skipped, source did not answer"
-    assert problems[2].startswith("temperature setpoint: cryo: Broken pipe")
-    # Each call made once: no retries during the shutdown.
+    assert problems[2] == "read back: current at zero: skipped, source did not answer"
+    assert problems[3] == "read back: output off: skipped, source did not answer"
+    assert problems[4].startswith("temperature setpoint: cryo: Broken pipe")
+    # Each call made once: nothing more is sent to an instrument that did not answer.
     assert calls == [("source", "set_current", 0.0), ("cryo", "set_setpoint", 290.0)]
+    # The truth, not a claim: neither the source nor the cryostat is known to be safe.
+    assert not report.ok
+    assert report.summary() == (
+        "safe state NOT verified: source: current at zero not read back (source does not "
+        "answer), output off not read back (source does not answer); cryo: safe-state calls "
+        "failed (cryo: Broken pipe (during 'SETP A,290.000'))")
 
 
 def test_shutdown_reopens_a_session_lost_in_a_failed_reconnect(
@@ -359,6 +394,7 @@ def test_shutdown_reopens_a_session_lost_in_a_failed_reconnect(
     instruments = {"source": Recorder("source", calls), "vxx": Recorder("vxx", calls)}
     runner = runner_with(tmp_path, protocol, RIG, instruments)
     runner._disconnected.add("source")
-    assert runner.shutdown() == []
+    assert runner.shutdown().ok
     assert calls == [("source", "reconnect", None), ("source", "set_current", 0.0),
-                     ("source", "set_output", False)]
+                     ("source", "set_output", False), ("source", "read_current", None),
+                     ("source", "output_is_on", None)]

@@ -36,12 +36,14 @@ def rig_with(tmp_path: Path, simulation: dict[str, object], compliance: str | No
     return path
 
 
-def run(tmp_path: Path, protocol_text: str, rig: Path, name: str = "run") -> tuple[int, Path]:
+def run(tmp_path: Path, protocol_text: str, rig: Path, name: str = "run",
+        *extra: str) -> tuple[int, Path]:
     protocol = tmp_path / f"{name}.yaml"
     protocol.write_text(protocol_text)
     out = tmp_path / f"out_{name}"
     code = main(
-        ["run", str(protocol), "--rig", str(rig), "--simulate", "--out", str(out), "--quiet"]
+        ["run", str(protocol), "--rig", str(rig), "--simulate", "--out", str(out), "--quiet",
+         *extra]
     )
     return code, out
 
@@ -138,6 +140,10 @@ def test_notification_program_gets_state_and_folder(tmp_path: Path) -> None:
     script = f"import sys; open({str(marker)!r}, 'w').write(' '.join(sys.argv[1:]))"
     protocol = LADDER.format(base=ROOT / "protocols" / "base.yaml", action="retry")
     protocol += f"notify: [{sys.executable!r}, -c, {script!r}]\n"
-    code, out = run(tmp_path, protocol, rig_with(tmp_path, {}), "notify")
+    # A rehearsal runs the notify program only when asked to.
+    code, out = run(tmp_path, protocol, rig_with(tmp_path, {}), "rehearsal")
+    assert code == 0 and not marker.exists()
+    assert "not run in a rehearsal" in (out / "run.log").read_text()
+    code, out = run(tmp_path, protocol, rig_with(tmp_path, {}), "notify", "--notify")
     assert code == 0
     assert marker.read_text() == f"done {out}"

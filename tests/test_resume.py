@@ -142,6 +142,9 @@ def test_truncated_last_line_and_partial_point_are_handled(tmp_path: Path) -> No
     rows_per_point = 4 * 3 * 2 * 2
     cut = 1 + 9 * rows_per_point + 7
     (out / "readings.csv").write_text("".join(lines[:cut]) + lines[cut][:15])
+    # Points reach points.csv after their readings: the cut left the first nine (2 channels).
+    points = (out / "points.csv").read_text().splitlines(keepends=True)
+    (out / "points.csv").write_text("".join(points[:1 + 9 * 2]))
     assert main(["resume", str(out), "--quiet"]) == 0
     assert_complete(out, 16, 2, rows_per_point)
     aside = pd.read_csv(out / "readings.partial.csv")
@@ -194,7 +197,7 @@ def test_status_reports_progress_and_a_dead_process(
     capsys.readouterr()
     assert main(["status", str(out)]) == 0
     shown = capsys.readouterr().out
-    assert "may have died" in shown and "resume" in shown
+    assert "state      stopped" in shown and f"'flipsweep resume {out}' continues" in shown
     assert f"/{216} points" in shown
     os.sync()
 

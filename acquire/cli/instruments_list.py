@@ -1,12 +1,44 @@
-"""`flipsweep instruments`: what VISA sees, and who answers *IDN? (read-only, nothing is set)."""
+"""`flipsweep instruments`: what VISA sees, and who answers *IDN? (read-only, nothing is set).
+
+Without a rig file only pyvisa-py is used, and serial ports are listed but not opened unless
+`--probe` asks: opening a serial port toggles its control lines, which resets some devices,
+and what listens on an unknown port may not take kindly to "*IDN?".
+"""
 
 from __future__ import annotations
 
 import warnings
 from pathlib import Path
 
+# What a VISA resource's interface needs installed (pyvisa-py's backends), by resource prefix.
+PACKAGES = {
+    "ASRL": "pyserial (pip install pyserial)",
+    "GPIB": "linux-gpib's Python bindings or gpib-ctypes (pip install gpib-ctypes), or a "
+            "vendor VISA library (visa_library: '' in the rig file)",
+    "USB": "pyusb (pip install pyusb) and the libusb system library",
+    "TCPIP": "nothing extra for raw sockets; psutil or zeroconf only widen discovery",
+}
 
-def list_instruments(rig_path: Path | None) -> int:
+
+def interface_of(resource: str) -> str:
+    for prefix in PACKAGES:
+        if resource.upper().startswith(prefix):
+            return prefix
+    return ""
+
+
+def describe_failure(resource: str, error: BaseException) -> str:
+    """The underlying error in one line, and the package that fixes it when one is missing."""
+    text = " ".join(str(error).split()) or type(error).__name__
+    shown = f"no answer: {type(error).__name__}: {text}"
+    missing = "please install" in text.lower() or "no module named" in text.lower()
+    package = PACKAGES.get(interface_of(resource))
+    if missing and package:
+        shown += f" -- fix: install {package}"
+    return f"({shown})"
+
+
+def list_instruments(rig_path: Path | None, probe: bool = False) -> int:
     from acquire.runtime.visa_library import resource_manager_for
 
     if rig_path is None:
@@ -19,6 +51,9 @@ def list_instruments(rig_path: Path | None) -> int:
             print("no VISA resources found (LAN instruments on raw sockets are not discoverable;"
                   " list them in a rig file and use --rig)")
         for resource in resources:
+            if interface_of(resource) == "ASRL" and not probe:
+                print(f"{resource}  (serial port, not opened; --probe asks it for *IDN?)")
+                continue
             print(f"{resource}  {_identity(manager, resource)}")
         return 0
     from acquire.inputs.load import load_rig
@@ -43,4 +78,4 @@ def _identity(manager: object, resource: str, timeout_s: float = 2.0) -> str:
         finally:
             handle.close()
     except Exception as error:  # report and go on: this is a survey, not a run
-        return f"(no answer: {type(error).__name__})"
+        return describe_failure(resource, error)

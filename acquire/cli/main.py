@@ -183,6 +183,12 @@ def _commands() -> dict[str, Callable[[argparse.Namespace], int]]:
 
 
 def main(argv: Sequence[str] | None = None) -> int:
+    if argv is None:
+        # The console script (the process is flipsweep's own): after a run, stop signals are
+        # ignored until the process exits (acquire.runtime.stop_signals).
+        from acquire.runtime.stop_signals import StopSignals
+
+        StopSignals.ignore_after_run = True
     commands = _commands()
     parser = build_parser(commands)
     args = parser.parse_args(argv)

@@ -4,22 +4,47 @@ from __future__ import annotations
 
 import argparse
 from collections.abc import Callable
-from datetime import datetime, timezone
 from pathlib import Path
+
+from acquire.errors import InputError
 
 
 def cmd_run(args: argparse.Namespace) -> int:
     from acquire.runtime.session import RunOptions, start_run
 
     options = RunOptions(simulate=args.simulate, seed=args.seed, realtime=args.realtime,
-                         progress=not args.quiet, operator=args.operator)
-    return start_run(Path(args.protocol), Path(args.rig), Path(args.out), options)
+                         progress=not args.quiet, operator=args.operator,
+                         notify_in_rehearsal=args.notify)
+    protocols = [Path(protocol) for protocol in args.protocol]
+    if len(protocols) > 1:
+        from acquire.runtime.night_plan import start_plan
+
+        return start_plan(protocols, Path(args.rig), Path(args.out), options)
+    return start_run(protocols[0], Path(args.rig), Path(args.out), options)
 
 
 def cmd_resume(args: argparse.Namespace) -> int:
+    from acquire.runtime.night_plan import is_plan, resume_plan
+    from acquire.runtime.rebuild_record import RebuildRequest
     from acquire.runtime.resume import resume_run
 
-    return resume_run(Path(args.dir), progress=not args.quiet)
+    rebuild = None
+    given = [option for option, value in (("--protocol", args.protocol), ("--rig", args.rig),
+                                          ("--simulate", args.simulate),
+                                          ("--seed", args.seed is not None)) if value]
+    if args.rebuild_record:
+        if not (args.protocol and args.rig):
+            raise InputError("--rebuild-record needs the files the run was started with",
+                             key=("--rebuild-record",), fix="add --protocol FILE --rig FILE")
+        rebuild = RebuildRequest(Path(args.protocol), Path(args.rig), simulate=args.simulate,
+                                 seed=args.seed)
+    elif given:
+        raise InputError(f"{given[0]} applies only with --rebuild-record (a resume takes the "
+                         "files from run.json)", key=(given[0],), fix=f"drop {given[0]}")
+    if is_plan(Path(args.dir)):
+        return resume_plan(Path(args.dir), progress=not args.quiet)
+    return resume_run(Path(args.dir), progress=not args.quiet,
+                      keep_points_aside=args.keep_points_aside, rebuild=rebuild)
 
 
 def cmd_reduce(args: argparse.Namespace) -> int:
@@ -31,35 +56,32 @@ def cmd_reduce(args: argparse.Namespace) -> int:
 
 
 def cmd_status(args: argparse.Namespace) -> int:
+    from acquire.cli.status import show_plan_status, show_status
+    from acquire.runtime.night_plan import is_plan
+
+    if is_plan(Path(args.dir)):
+        return show_plan_status(Path(args.dir))
+    return show_status(Path(args.dir))
+
+
+def _with_points(run_dir: str) -> Path:
+    """The folder of a run that has reduced points (exit 2 otherwise)."""
     from acquire.store.run_folder import RunFolder
 
-    folder = RunFolder(Path(args.dir))
+    folder = RunFolder(Path(run_dir))
     folder.read_run_json()
-    status = folder.read_status()
-    if status is None:
-        starting = " (a process is starting the run)" if folder.is_running() else ""
-        print(f"{folder.path}: no status yet{starting}")
-        return 0
-    updated = datetime.fromisoformat(status["updated_utc"])
-    age = (datetime.now(timezone.utc) - updated).total_seconds()
-    # The folder lock tells for sure on this machine; the heartbeat's age from elsewhere.
-    alive = status["state"] == "running" and (folder.is_running() or age < 60)
-    state = status["state"]
-    if state == "running" and not alive:
-        state = f"running? no heartbeat for {age:.0f} s: the process may have died; " \
-                "'flipsweep resume' continues it"
-    done, total = status["points_done"], status["points_total"]
-    print(f"state      {state}")
-    print(f"progress   {done}/{total} points ({done / max(total, 1):.0%})")
-    if status["state"] == "running":
-        print(f"ETA        {status['eta_s'] / 60:.1f} min (run clock)")
-    print(f"heartbeat  {age:.0f} s ago (pid {status.get('pid')} on {status.get('host')})")
-    last = status.get("last_point") or {}
-    if last:
-        print(f"last point {last['point']}: R = {last['resistance_ohm']:.6g} ohm, "
-              f"unidirectional {last['unidirectional_ratio_ppm']:+.3f} ppm"
-              + (f", flags {last['flags']}" if last.get("flags") else ""))
-    return 0
+    points = folder.points
+    try:
+        with open(points, encoding="utf-8", errors="replace") as handle:
+            has_rows = bool(handle.readline()) and bool(handle.readline().strip())
+    except OSError:
+        has_rows = False
+    if not has_rows:
+        raise InputError("has no reduced points yet (points.csv is missing or empty)",
+                         file=str(folder.path),
+                         fix="wait for the run's first point, or 'flipsweep reduce "
+                             f"{folder.path}' if readings.csv has rows")
+    return folder.path
 
 
 def cmd_fit(args: argparse.Namespace) -> int:
@@ -67,8 +89,9 @@ def cmd_fit(args: argparse.Namespace) -> int:
     from acquire.analysis.fit_summary import fit_summary
     from acquire.analysis.fit_tables import read_fits_table
 
-    path = fit_run(Path(args.dir), angle_offset=args.angle_offset, field_form=args.field_form,
-                   dR_dT_ohm_per_K=args.dr_dt, heating_warn_K=args.heating_warn)
+    path = fit_run(_with_points(args.dir), angle_offset=args.angle_offset,
+                   field_form=args.field_form, dR_dT_ohm_per_K=args.dr_dt,
+                   heating_warn_K=args.heating_warn)
     for line in fit_summary(read_fits_table(path)):
         print(line)
     print(f"wrote {path}")
@@ -78,7 +101,7 @@ def cmd_fit(args: argparse.Namespace) -> int:
 def cmd_report(args: argparse.Namespace) -> int:
     from acquire.analysis import report_run
 
-    path = report_run(Path(args.dir))
+    path = report_run(_with_points(args.dir))
     print(f"wrote {path}")
     return 0
 
@@ -86,7 +109,7 @@ def cmd_report(args: argparse.Namespace) -> int:
 def cmd_instruments(args: argparse.Namespace) -> int:
     from acquire.cli.instruments_list import list_instruments
 
-    return list_instruments(Path(args.rig) if args.rig else None)
+    return list_instruments(Path(args.rig) if args.rig else None, probe=args.probe)
 
 
 COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
@@ -96,8 +119,10 @@ COMMANDS: dict[str, Callable[[argparse.Namespace], int]] = {
 
 
 def _run_args(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
-    run = add("run", "run a protocol on a rig (or rehearse it with --simulate)")
-    run.add_argument("protocol", help="the protocol file (YAML)")
+    run = add("run", "run a protocol on a rig (or rehearse it with --simulate); several "
+                     "protocols run one after the other, each into its own folder under --out")
+    run.add_argument("protocol", nargs="+", help="the protocol file (YAML); several make a "
+                                                 "night plan")
     run.add_argument("--rig", required=True, help="the rig file (YAML): instruments and limits")
     run.add_argument("--out", required=True, metavar="DIR",
                      help="new folder for this run's files (must not hold a run already)")
@@ -111,6 +136,8 @@ def _run_args(add: Callable[[str, str], argparse.ArgumentParser]) -> None:
     run.add_argument("--operator", metavar="NAME",
                      help="who runs it, recorded in run.json as host.user (default: your login "
                           "name; --operator '' records none)")
+    run.add_argument("--notify", action="store_true",
+                     help="run the protocol's notify program in a simulated run too")
 
 
 AddCommand = Callable[[str, str], argparse.ArgumentParser]
@@ -122,6 +149,17 @@ def _dir_command(name: str, text: str) -> Callable[[AddCommand], None]:
         command.add_argument("dir", help="the run folder (the --out of 'flipsweep run')")
         if name == "resume":
             command.add_argument("--quiet", action="store_true", help="no progress bar")
+            command.add_argument("--keep-points-aside", action="store_true",
+                                 help="keep damaged rows and points without readings in files "
+                                      "beside the tables, and measure those points again")
+            command.add_argument("--rebuild-record", action="store_true",
+                                 help="write a lost or damaged run.json again from --protocol "
+                                      "and --rig, checked against the folder's data")
+            command.add_argument("--protocol", help="with --rebuild-record: the run's protocol")
+            command.add_argument("--rig", help="with --rebuild-record: the run's rig")
+            command.add_argument("--simulate", action="store_true",
+                                 help="with --rebuild-record: the run was a simulated one")
+            command.add_argument("--seed", type=int, help="with --rebuild-record: its seed")
         if name == "fit":
             command.add_argument(
                 "--angle-offset", action="store_true",
@@ -146,6 +184,8 @@ def _instruments_args(add: Callable[[str, str], argparse.ArgumentParser]) -> Non
     command = add("instruments", "list VISA resources and ask each for its identity")
     command.add_argument("--rig", help="ask the rig's instruments at their addresses (without "
                                        "it: every resource pyvisa-py finds)")
+    command.add_argument("--probe", action="store_true",
+                         help="without --rig: ask serial ports for their identity too")
 
 
 ARGUMENTS: dict[str, Callable[[AddCommand], None]] = {

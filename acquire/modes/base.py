@@ -47,6 +47,8 @@ class MeasureContext:
     readbacks: Callable[[], tuple[float | None, ...]]  # every axis's readback, column order
     heartbeat: Callable[[], None]
     used_axes: frozenset[str]  # loop axes the protocol sweeps (others leave columns empty)
+    # Transient faults the run has met so far: a reading taken after a change is flagged.
+    faults: Callable[[], int] = lambda: 0
 
 
 class PointMeasurement(ABC):

@@ -68,13 +68,20 @@ class Instruments:
                 limits[name] = _merged(own, limits[name])
             methods = {limit.method: limit.template for limit in role.template_limits}
             self.by_name[name] = Guarded(driver, limits[name], methods)
+        # What the run calls: the guarded drivers, or their retrying views once a fault
+        # budget is attached. `by_name` stays the guarded drivers (the safe shutdown's).
+        self.views: dict[str, Any] = dict(self.by_name)
+
+    def attach(self, wrap: Callable[[Any], Any]) -> None:
+        """Route the run's calls through `wrap(guarded driver)` (the fault budget's view)."""
+        self.views = {name: wrap(guarded) for name, guarded in self.by_name.items()}
 
     def named(self, name: str) -> Any:
-        return self.by_name[name]
+        return self.views[name]
 
     def one(self, role: Role[DriverT]) -> DriverT | None:
         entry = self.rig.one(role)
-        return self.by_name.get(entry[0]) if entry else None
+        return self.views.get(entry[0]) if entry else None
 
     def required(self, role: Role[DriverT]) -> DriverT:
         found = self.one(role)
@@ -90,7 +97,7 @@ class Instruments:
         return self.rig.instruments[name]
 
     def all(self) -> Iterator[Any]:
-        yield from self.by_name.values()
+        yield from self.views.values()
 
 
 def _merged(own: CommandLimits, run: CommandLimits) -> CommandLimits:

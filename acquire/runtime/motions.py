@@ -42,16 +42,23 @@ class AxisMover:
             return motion.read(self.driver)
         return motion.position(self.driver)
 
+    def shown(self, value: float) -> str:
+        """A value in the axis's display unit, without the unit (activity lines)."""
+        return f"{value * self.axis.quantity.shown_scale:.4g}"
+
     def move_to(self, target: float) -> None:
         motion, wait, name = self.axis.motion, self.wait, self.axis.name
+        quantity = self.axis.quantity
+        unit = quantity.shown_unit or quantity.si_unit
         if isinstance(motion, SettleMotion):
             motion.set(self.driver, target)
             self.waiter.until_stable(name, lambda: motion.read(self.driver), target,
-                                     wait.tolerance, wait.hold, wait.timeout)
+                                     wait.tolerance, wait.hold, wait.timeout, self.shown, unit)
             return
         for leg in motion.legs(self.spec, self.present, target):
             motion.move(self.driver, leg)
-            self.waiter.until_false(name, lambda: motion.moving(self.driver), wait.timeout, leg)
+            self.waiter.until_false(name, lambda: motion.moving(self.driver), wait.timeout, leg,
+                                    self.shown, unit)
             self.present = leg
         position = motion.position(self.driver)
         if abs(position - target) > wait.tolerance:

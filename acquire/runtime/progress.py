@@ -1,4 +1,5 @@
-"""Progress for the person watching: a bar whose ETA learns the real pace, and status.json."""
+"""Progress for the person watching: a bar with what the run is doing now and one ETA (from the
+estimate until the measured pace is known), and status.json."""
 
 from __future__ import annotations
 
@@ -13,6 +14,10 @@ from acquire.runtime.runner import PointOutcome
 from acquire.store.run_folder import RunFolder
 
 HEARTBEAT_S = 10.0
+ACTIVITY_REFRESH_S = 0.5  # wall seconds between redraws of the bar for a new activity line
+# tqdm's own remaining-time guess is left out: it knows nothing of the estimate, and two ETAs
+# that disagree help nobody. Ours is in the postfix.
+BAR_FORMAT = "{desc}: {percentage:3.0f}%|{bar}| {n_fmt}/{total_fmt} pt{postfix}"
 
 
 @dataclass
@@ -29,8 +34,11 @@ class Progress:
     state: str = "running"
     min_status_interval_s: float = 0.0  # > 0 on the virtual clock, where points fly by
     summary: Any = None  # the mode's summary of a reduced point (result -> PointSummary)
+    extra_status: dict[str, Any] = field(default_factory=dict)  # e.g. the inputs' SHA-256
+    current_activity: str = "starting"
     _bar: Any = None
     _done_at_start: int = 0
+    _shown_activity_at: float = 0.0
 
     def start(self, already_done: int) -> None:
         self.done = already_done
@@ -38,8 +46,24 @@ class Progress:
         self._done_at_start = already_done
         if self.show_bar:
             self._bar = tqdm(total=self.total_points, initial=already_done, unit="pt",
-                             dynamic_ncols=True, leave=True)
+                             dynamic_ncols=True, leave=True, bar_format=BAR_FORMAT,
+                             desc=self.current_activity)
+            self._bar.set_postfix_str(f"ETA {format_eta(self.eta_s())} (estimate)",
+                                      refresh=True)
         self.write_status()
+
+    def activity(self, text: str) -> None:
+        """What the run is doing now ("ramping field 0.31 -> 0.5 T"): on the bar and in
+        status.json."""
+        self.current_activity = text
+        if self._bar is not None and time.monotonic() - self._shown_activity_at >= (
+                ACTIVITY_REFRESH_S):
+            self._shown_activity_at = time.monotonic()
+            self._bar.set_description_str(text, refresh=True)
+
+    @property
+    def pace_known(self) -> bool:
+        return self.done > self._done_at_start
 
     def eta_s(self) -> float:
         """Start from the estimate; scale by the measured pace once points are done."""
@@ -73,6 +97,7 @@ class Progress:
                     f"uni={shown.unidirectional_ratio * 1e6:+.2f} ppm, "
                     f"ETA {format_eta(self.eta_s())}", refresh=False,
                 )
+            self._bar.set_description_str(self.current_activity, refresh=False)
             self._bar.refresh()
         if time.monotonic() - self.last_status_wall >= self.min_status_interval_s:
             self.write_status()
@@ -88,12 +113,16 @@ class Progress:
             "points_done": self.done,
             "points_total": self.total_points,
             "eta_s": round(self.eta_s(), 1) if self.state == "running" else 0.0,
+            "eta_from": "measured pace" if self.pace_known else "estimate",
+            "activity": self.current_activity if self.state == "running" else self.state,
             "run_clock_s": round(self.clock_now(), 3),
             "last_point": self.last_point,
+            **self.extra_status,
         })
 
-    def close(self, state: str) -> None:
+    def close(self, state: str, extra: dict[str, Any] | None = None) -> None:
         self.state = state
+        self.extra_status.update(extra or {})
         if self._bar is not None:
             self._bar.close()
         self.write_status()

@@ -1,8 +1,9 @@
 """The runner: the one place that touches instruments, sleeps, retries and decides on failure.
 
 It moves the slow axes (with their waits), hands each point to the protocol's acquisition mode,
-retries transient faults, applies the protocol's on_problem policy, stores the points and, at
-the end, leaves every instrument in its role's safe state.
+retries transient faults (acquire.runtime.fault_budget: per call, then the point again),
+applies the protocol's on_problem policy, stores the points and, at the end, leaves every
+instrument in its role's safe state and reads it back.
 """
 
 from __future__ import annotations
@@ -21,22 +22,27 @@ from acquire.inputs.stack import StackGeometry
 from acquire.modes.base import MeasureContext, PointProblem
 from acquire.plan.schedule import Measure, Move, Point, Step, iterate_steps, plans_from
 from acquire.runtime.clock import Clock
+from acquire.runtime.fault_budget import (
+    RETRY_BACKOFF_S,
+    SILENT_FAILURES,
+    SILENT_S,
+    TRANSIENT_FAULTS,
+    FaultBudget,
+    InstrumentSilent,
+    Retrying,
+    TransactionFailed,
+)
 from acquire.runtime.instruments import Instruments
 from acquire.runtime.motions import AxisMover
-from acquire.runtime.safe_shutdown import make_safe
+from acquire.runtime.safe_shutdown import SafeReport, make_safe
 from acquire.runtime.waits import StabilityWait, WaitTimeout
 from acquire.store.append_table import AppendTable
-from drivers.errors import CommunicationError, InstrumentError, LimitError
+from drivers.errors import LimitError
 from drivers.roles import movable_axes, role_named, role_of_axis
 
 log = logging.getLogger("flipsweep")
 
-RETRY_BACKOFF_S = (1.0, 4.0, 15.0)  # transient faults: wait, reconnect, measure again
-# What a run survives by waiting, reconnecting and doing the step again: a VISA timeout or I/O
-# error, and an unreadable reply (line noise reaches the drivers as InstrumentError). A fault
-# that persists through every backoff stops the run. A value refused for a limit is never a
-# transient fault: it stops the run at once.
-TRANSIENT_FAULTS = (CommunicationError, InstrumentError)
+__all__ = ["TRANSIENT_FAULTS", "InstrumentSilent", "PointOutcome", "Runner", "StopRun"]
 
 Result = TypeVar("Result")
 
@@ -54,8 +60,10 @@ class PointOutcome:
 
 
 class Runner:
-    # Seconds to wait before each retry of a step hit by a transient fault; one retry per entry.
+    # Seconds to wait before a retry, by how many calls in a row the instrument has failed.
     retry_backoff_s: tuple[float, ...] = RETRY_BACKOFF_S
+    silent_failures: int = SILENT_FAILURES  # an instrument failing this often in a row ...
+    silent_s: float = SILENT_S  # ... or this long stays silent: the run stops
 
     def __init__(
         self,
@@ -67,6 +75,7 @@ class Runner:
         on_point: Callable[[PointOutcome], None] = lambda outcome: None,
         heartbeat: Callable[[], None] = lambda: None,
         sync_interval_s: float = 0.0,
+        activity: Callable[[str], None] = lambda text: None,
     ) -> None:
         self.protocol = loaded.protocol
         self.loaded = loaded
@@ -77,7 +86,14 @@ class Runner:
         self.tables = tables
         self.points = tables[self.mode.tables()[-1].file_name]
         self.on_point = on_point
-        self.waiter = StabilityWait(clock, heartbeat)
+        self.activity = activity
+        self.budget = FaultBudget(
+            retries=self.protocol.on_problem.retries, now=clock.now, recover=self._recover,
+            backoff_s=self.retry_backoff_s, silent_failures=self.silent_failures,
+            silent_s=self.silent_s,
+        )
+        instruments.attach(lambda guarded: Retrying(guarded, self.budget))
+        self.waiter = StabilityWait(clock, heartbeat, activity)
         self.heartbeat = heartbeat  # status.json stays fresh inside a long point too
         self.density_per_ampere = StackGeometry.from_sample(
             self.protocol.sample
@@ -91,6 +107,7 @@ class Runner:
         self.measurement = self.mode.measurement(MeasureContext(
             protocol=self.protocol, instruments=instruments, clock=clock, tables=tables,
             readbacks=self._readbacks, heartbeat=heartbeat, used_axes=self.used_axes,
+            faults=lambda: self.budget.faults,
         ))
         self.flags_pending: set[str] = set()
         # 0: fsync at every point (a real night). A dry run on the virtual clock measures
@@ -102,8 +119,9 @@ class Runner:
 
     # -- configuration ------------------------------------------------------------------
     def configure(self) -> None:
-        # Configuring is idempotent, so a transient fault repeats all of it.
-        self._with_retries("configuration", self._configure_once)
+        # Configuring is idempotent, so a failed call repeats all of it.
+        self.activity("configuring the instruments")
+        self._repeat("configuration", self._configure_once)
 
     def _configure_once(self) -> None:
         for role in sorted({role_named(spec.role) for spec in self.rig.rig.instruments.values()},
@@ -132,17 +150,29 @@ class Runner:
         attempt = 0
         flags: list[str] = sorted(self.flags_pending)
         self.flags_pending.clear()
-        transient_failures = 0
+        budget = self.budget
+        budget.context = f"point {point.number}"
+        faults_before = budget.faults
+        measured_again = 0
+
+        def outcome(result: Any, skipped: bool = False) -> PointOutcome:
+            marks = {*flags, "retry"} if budget.faults != faults_before else set(flags)
+            return PointOutcome(point, result, "|".join(sorted(marks)), skipped=skipped)
+
         while True:
             try:
                 raw = self.measurement.measure(point, attempt, "|".join(flags))
                 self.measurement.check()
             except LimitError as error:
                 raise StopRun(f"point {point.number}: {error}") from error
-            except TRANSIENT_FAULTS as error:
-                transient_failures += 1
+            except TransactionFailed as failed:
+                measured_again += 1
+                if measured_again > policy.retries:
+                    raise StopRun(str(failed)) from failed
+                log.warning("%s; measuring point %d again (attempt %d)", failed, point.number,
+                            attempt + 1)
                 self._rest()
-                self._after_transient(f"point {point.number}", error, transient_failures)
+                self._recover(budget.backoff_for(failed.instrument), [failed.instrument])
                 attempt += 1
                 flags = sorted({*flags, "retry"})
                 continue
@@ -154,78 +184,72 @@ class Runner:
                     raise StopRun(f"point {point.number}: {problem}") from problem
                 if action == "skip":
                     self.tables[self.mode.tables()[0].file_name].commit()
-                    return PointOutcome(point, None, "|".join(flags), skipped=True)
+                    return outcome(None, skipped=True)
                 if action == "retry" and attempt < policy.retries:
                     attempt += 1
                     flags = sorted({*flags, "retry"})
                     continue
                 # "flag", or retries used up: keep the data, flagged.
                 self._clear_errors()
-                result = self.mode.reduce_point(self.protocol, point, raw)
-                return PointOutcome(point, result, "|".join(flags))
-            result = self.mode.reduce_point(self.protocol, point, raw)
-            return PointOutcome(point, result, "|".join(flags))
+                return outcome(self.mode.reduce_point(self.protocol, point, raw))
+            return outcome(self.mode.reduce_point(self.protocol, point, raw))
 
     # -- transient faults ---------------------------------------------------------------
     def identities(self, opened: dict[str, Any]) -> dict[str, str]:
         """Each opened instrument's *IDN? reply, for run.json (the run's first queries)."""
         return {
-            name: self._with_retries(f"identify {name}", driver.identify)
-            for name, driver in opened.items()
+            name: self._repeat(f"identify {name}", self.instruments.named(name).identify)
+            for name in opened
         }
 
-    def _with_retries(self, what: str, action: Callable[[], Result]) -> Result:
-        """`action()`, done again after each transient fault; the next point is flagged."""
-        failures = 0
+    def _repeat(self, what: str, action: Callable[[], Result]) -> Result:
+        """`action()`, done again when one of its calls fails through its retry budget (up to
+        the protocol's retries); a fault on the way flags the next point."""
+        budget = self.budget
+        budget.context = what
+        faults_before = budget.faults
+        repeats = 0
         while True:
             try:
-                return action()
+                result = action()
             except LimitError as error:
                 raise StopRun(f"{what}: {error}") from error
-            except TRANSIENT_FAULTS as error:
-                failures += 1
-                self._after_transient(what, error, failures)
-                self.flags_pending.add("retry")
+            except TransactionFailed as failed:
+                repeats += 1
+                if repeats > self.protocol.on_problem.retries:
+                    raise StopRun(str(failed)) from failed
+                log.warning("%s; doing it again (%d of %d)", failed, repeats,
+                            self.protocol.on_problem.retries)
+                self._recover(budget.backoff_for(failed.instrument), [failed.instrument])
+                continue
+            finally:
+                if budget.faults != faults_before:
+                    self.flags_pending.add("retry")
+            return result
 
-    def _after_transient(self, what: str, error: Exception, failures: int) -> None:
-        """Back off and reconnect before retry number `failures`, or stop the run."""
-        budget = len(self.retry_backoff_s)
-        if failures > budget:
-            raise StopRun(f"{what}: {error}; still failing after {budget} retries "
-                          "with reconnect") from error
-        backoff = self.retry_backoff_s[failures - 1]
-        affected = self._affected(error)
-        log.warning("%s: %s; retry %d of %d in %g s after reconnecting %s", what, error,
-                    failures, budget, backoff, ", ".join(i.name for i in affected))
-        self._recover(backoff, affected)
-
-    def _affected(self, error: Exception) -> list[Any]:
-        """The instrument the fault names; all of them if it names none of the rig's."""
-        every = list(self.instruments.all())
-        named = [i for i in every if i.name == getattr(error, "instrument", None)]
-        return named or every
-
-    def _recover(self, backoff_s: float, instruments: list[Any]) -> None:
+    def _recover(self, backoff_s: float, names: list[str]) -> None:
+        """Wait, then open a fresh session to each named instrument."""
         self.waiter.heartbeat()
         self.clock.sleep(backoff_s)
-        for instrument in instruments:
+        for name in names:
+            instrument = self.instruments.by_name[name]
             try:
                 # A fresh session also drops a late reply still on its way to the old one,
                 # which the next query would otherwise read as its own answer.
                 instrument.reconnect()
-                self._disconnected.discard(instrument.name)
+                self._disconnected.discard(name)
             except Exception as error:  # a VISA library may raise anything for a dead address
-                self._disconnected.add(instrument.name)
-                log.warning("reconnect of %s failed: %s", instrument.name, error)
+                self._disconnected.add(name)
+                log.warning("reconnect of %s failed: %s", name, error)
 
     def _rest(self) -> None:
-        """The excitation at rest while waiting to retry (best effort, no retry)."""
-        with contextlib.suppress(*TRANSIENT_FAULTS):
+        """The excitation at rest while waiting to measure again (best effort)."""
+        with contextlib.suppress(TransactionFailed, *TRANSIENT_FAULTS):
             self.measurement.rest()
 
     def _clear_errors(self) -> None:
-        for instrument in self.instruments.all():
-            with contextlib.suppress(InstrumentError, CommunicationError):
+        for instrument in self.instruments.by_name.values():  # best effort, never retried
+            with contextlib.suppress(*TRANSIENT_FAULTS):
                 instrument.errors()
 
     def point_rows(self, outcome: PointOutcome) -> list[tuple[object, ...]]:
@@ -244,8 +268,8 @@ class Runner:
         for step in self.steps(start_point):
             if isinstance(step, Move):
                 try:
-                    self._with_retries(f"move {step.axis} to {step.value:g}",
-                                       functools.partial(self.move, step))
+                    self._repeat(f"move {step.axis} to {step.value:g}",
+                                 functools.partial(self.move, step))
                     pending_skip = False
                 except WaitTimeout as timeout:
                     action = self.protocol.on_problem.wait_timeout
@@ -261,6 +285,7 @@ class Runner:
             if pending_skip:
                 outcome = PointOutcome(step.point, None, "wait_timeout", skipped=True)
             else:
+                self.activity(f"measuring point {step.point.number}")
                 outcome = self.measure_with_policy(step.point)
             self.points.extend(self.point_rows(outcome))
             self._commit_point()
@@ -277,6 +302,6 @@ class Runner:
         for table in self.tables.values():
             table.commit(durable)
 
-    def shutdown(self) -> list[str]:
-        """The safe state (see acquire.runtime.safe_shutdown); failures are returned for the log."""
+    def shutdown(self) -> SafeReport:
+        """The safe state, read back (see acquire.runtime.safe_shutdown)."""
         return make_safe(self.instruments, self.protocol.finish, self._disconnected)

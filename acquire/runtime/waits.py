@@ -17,12 +17,21 @@ class WaitTimeout(Exception):
         )
 
 
+def plain(value: float) -> str:
+    return f"{value:.4g}"
+
+
 @dataclass
 class StabilityWait:
-    """Wait until |readback - target| <= tolerance has held for `hold_s`, or time out."""
+    """Wait until |readback - target| <= tolerance has held for `hold_s`, or time out.
+
+    While it waits it says what it is doing (`activity`): "ramping field 0.31 -> 0.5 T" while
+    the readback is outside the tolerance, "waiting for temperature 45/120 s stable" inside it.
+    """
 
     clock: Clock
     heartbeat: Callable[[], None]
+    activity: Callable[[str], None] = lambda text: None
 
     def until_stable(
         self,
@@ -32,6 +41,8 @@ class StabilityWait:
         tolerance: float,
         hold_s: float,
         timeout_s: float,
+        shown: Callable[[float], str] = plain,
+        unit: str = "",
     ) -> float:
         started = self.clock.now()
         inside_since: float | None = None
@@ -42,8 +53,11 @@ class StabilityWait:
                 inside_since = now if inside_since is None else inside_since
                 if now - inside_since >= hold_s:
                     return value
+                self.activity(f"waiting for {axis} {now - inside_since:.0f}/{hold_s:.0f} s "
+                              "stable")
             else:
                 inside_since = None
+                self.activity(f"ramping {axis} {shown(value)} -> {shown(target)} {unit}".rstrip())
             if now - started > timeout_s:
                 raise WaitTimeout(axis, target, value, timeout_s)
             self.heartbeat()
@@ -53,8 +67,10 @@ class StabilityWait:
             self.clock.sleep(max(pause, 1e-3))
 
     def until_false(
-        self, axis: str, busy: Callable[[], bool], timeout_s: float, target: float
+        self, axis: str, busy: Callable[[], bool], timeout_s: float, target: float,
+        shown: Callable[[float], str] = plain, unit: str = "",
     ) -> None:
+        self.activity(f"moving {axis} to {shown(target)} {unit}".rstrip())
         started = self.clock.now()
         while busy():
             if self.clock.now() - started > timeout_s:

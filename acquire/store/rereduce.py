@@ -6,6 +6,7 @@ from pathlib import Path
 
 import pandas as pd
 
+from acquire.errors import InputError
 from acquire.inputs.stack import carrier_density_per_ampere, layers_from_records
 from acquire.modes import mode_named
 from acquire.store.append_table import atomic_write_text, format_cell
@@ -44,7 +45,17 @@ def rereduce(run_dir: Path) -> tuple[Path, int]:
     record = folder.read_run_json()
     mode = mode_named(record.mode)
     readings_schema = mode.tables()[0]
-    readings = readings_schema.read(folder.path / readings_schema.file_name)
+    readings_path = folder.path / readings_schema.file_name
+    if not readings_path.is_file() or readings_path.stat().st_size == 0:
+        raise InputError(f"has no {readings_schema.file_name}, so there is nothing to reduce",
+                         file=str(folder.path), fix="give the folder of a run that has readings")
+    try:
+        readings = readings_schema.read(readings_path)
+    except (ValueError, pd.errors.ParserError) as error:
+        raise InputError(f"{readings_schema.file_name} is damaged ({error})",
+                         file=str(readings_path),
+                         fix=f"'flipsweep resume {folder.path}' repairs it (or says how)"
+                         ) from None
     schema, points = reduced_points(folder, record, readings)
     target = folder.path / schema.file_name
     write_table(target, schema, points)

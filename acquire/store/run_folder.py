@@ -68,7 +68,11 @@ class RunFolder:
 
     def prepare_new(self, needed_bytes: int) -> None:
         """Refuse before any instrument is touched if the folder is unusable."""
-        if self.path.exists() and any(self.path.iterdir()):
+        if self.path.exists() and not self.path.is_dir():
+            raise InputError("is a file, not a folder", file=str(self.path), key=("--out",),
+                             fix="give a new folder for the run")
+        # A lock left by a process killed before it wrote run.json holds no data.
+        if self.path.exists() and any(entry.name != "run.lock" for entry in self.path.iterdir()):
             raise InputError(
                 "the output folder is not empty", file=str(self.path), key=("--out",),
                 fix="give a new folder, or use 'flipsweep resume' to continue a run there",
@@ -211,7 +215,7 @@ def host_description(operator: str | None = None) -> dict[str, str]:
     return described
 
 
-class RunLogHandler(logging.StreamHandler):  # type: ignore[type-arg]
+class RunLogHandler(logging.StreamHandler):
     """run.log; a line that cannot be written (disk full) is dropped without a traceback on
     the terminal: the run's own failure handling says what happened, once."""
 

@@ -58,6 +58,7 @@ class OptionsRecord(Record):
     simulate: bool = False
     seed: int | None = None
     realtime: bool = False
+    notify_in_rehearsal: bool = False
 
 
 class EstimateRecord(Record):

@@ -3,7 +3,8 @@
 A role declares, as data where it can: the driver interface the runner may use, its rig-file
 entry (settings and hardware limits, parsed into SI), its dialect file, the limits every command
 it sends must respect (checked on the rendered text), the loop axis it moves and how, how long
-that takes, how it is configured at the start of a run, and its safe state at the end. Nothing
+that takes, how it is configured at the start of a run, its safe state at the end and how that
+state is read back. Nothing
 outside the role's own module branches on its name.
 """
 
@@ -21,6 +22,18 @@ from drivers.spec import COMMON_KEYS, InstrumentSpec
 DriverT = TypeVar("DriverT")
 # (what, action): one call of the safe shutdown, attempted once, bounded in time.
 SafeAction = tuple[str, Callable[[], object]]
+
+
+@dataclass(frozen=True)
+class SafeReading:
+    """What reading an instrument back after the safe shutdown found."""
+
+    safe: bool | None  # None: the instrument has no query that could tell
+    found: str  # what was read, as a person says it: "current 0 A", "output on"
+
+
+# (what, read): one read-back of the safe state, e.g. ("output off", read the output relay).
+SafeCheck = tuple[str, Callable[[], SafeReading]]
 
 
 @dataclass(frozen=True)
@@ -148,6 +161,11 @@ def no_safe_state(driver: Any, finish: Mapping[str, object]) -> list[SafeAction]
     return []
 
 
+def no_verification(driver: Any, finish: Mapping[str, object]) -> list[SafeCheck]:
+    """A role whose safe state is not read back (it is commanded only)."""
+    return []
+
+
 @dataclass(frozen=True)
 class Role(Generic[DriverT]):
     name: str
@@ -166,6 +184,8 @@ class Role(Generic[DriverT]):
     configure: Callable[[Any, Any], None] = nothing_to_configure
     # The calls that leave this instrument safe, given the protocol's `finish` section.
     safe_state: Callable[[Any, Mapping[str, object]], list[SafeAction]] = no_safe_state
+    # The read-backs that show the safe state was reached, after `safe_state`'s calls.
+    verify_safe: Callable[[Any, Mapping[str, object]], list[SafeCheck]] = no_verification
     # (rig entry, planned peak current, voltage it needs across the sample) -> LoadCheck
     check_load: Callable[[Any, float, float], LoadCheck] = no_load_check
     shutdown_rank: int = 100  # lower first: the current source goes before everything else

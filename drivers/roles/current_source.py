@@ -11,7 +11,16 @@ from drivers.command_limits import past
 from drivers.driver_base import DialectDriver
 from drivers.interface import Instrument
 from drivers.quantities import Current, Voltage
-from drivers.roles.base import LoadCheck, Quantity, Role, SafeAction, TemplateLimit, entry_error
+from drivers.roles.base import (
+    LoadCheck,
+    Quantity,
+    Role,
+    SafeAction,
+    SafeCheck,
+    SafeReading,
+    TemplateLimit,
+    entry_error,
+)
 from drivers.spec import InstrumentSpec, Strict
 
 CURRENT = Quantity("current", "A", "mA", 1e3)
@@ -45,6 +54,9 @@ TEMPLATE_LIMITS = (
                   symmetric=True),
 )
 COMPLIANCE_WARNING_FRACTION = 0.8  # common practice: keep headroom below the compliance voltage
+# A level read back within this of zero is zero: a source programmed to 0 reads back 0, and a
+# current left on by a failed shutdown is the run's mA-scale setting (common practice).
+ZERO_CURRENT_A = 1e-9
 
 
 class DialectCurrentSource(DialectDriver):
@@ -69,6 +81,13 @@ class DialectCurrentSource(DialectDriver):
 
     def read_current(self) -> float:
         return self.transport.ask_number("read_current")
+
+    def reads_current(self) -> bool:
+        return self._supports("read_current")
+
+    def output_is_on(self) -> bool | None:
+        """The output relay's state; None when the dialect has no query for it."""
+        return self.transport.ask_flag("output_state") if self._supports("output_state") else None
 
 
 def _check(spec: CurrentSourceSpec) -> None:
@@ -110,6 +129,28 @@ def _safe_state(driver: CurrentSource, finish: Mapping[str, object]) -> list[Saf
             ("output off", lambda: driver.set_output(False))]
 
 
+def _current_reading(driver: CurrentSource) -> SafeReading:
+    reads = getattr(driver, "reads_current", None)
+    if reads is not None and not reads():
+        return SafeReading(None, "its dialect has no read_current query")
+    level = driver.read_current()
+    return SafeReading(abs(level) <= ZERO_CURRENT_A, f"current {CURRENT.shown(level)}")
+
+
+def _output_reading(driver: CurrentSource) -> SafeReading:
+    # A driver of the user's own may have no output query at all.
+    query = getattr(driver, "output_is_on", None)
+    on = query() if query is not None else None
+    if on is None:
+        return SafeReading(None, "its dialect has no output_state query")
+    return SafeReading(not on, "output on" if on else "output off")
+
+
+def _verify_safe(driver: CurrentSource, finish: Mapping[str, object]) -> list[SafeCheck]:
+    return [("current at zero", lambda: _current_reading(driver)),
+            ("output off", lambda: _output_reading(driver))]
+
+
 ROLE: Role[CurrentSource] = Role(
     name="current_source",
     interface=CurrentSource,
@@ -122,6 +163,7 @@ ROLE: Role[CurrentSource] = Role(
     check_load=_check_load,
     configure=_configure,
     safe_state=_safe_state,
+    verify_safe=_verify_safe,
     shutdown_rank=0,
     order=0,
 )

@@ -91,6 +91,7 @@ class SimulatedCurrentSource:
             "read_current": self.programmed_current,
             "output_on": lambda: self.set_output(True),
             "output_off": lambda: self.set_output(False),
+            "output_state": lambda: self.state.output,
             "compliance": self.set_compliance,
             "tripped": self.compliance_tripped,
         }

@@ -3,7 +3,10 @@
 At every step of every cycle the source is set to +I, 0 or -I (zero between polarities, never
 output-off: the output relay does not switch at every step, common practice), the current is
 let settle, the readbacks are taken, then every channel is read `per_step` times. Each reading
-becomes a row of readings.csv as it is taken.
+becomes a row of readings.csv as it is taken: the rows of a step are written when the step
+ends and reach the operating system every few seconds of run clock, so a long point is never
+held in memory or lost whole to a kill. A row taken after a transient fault in the attempt is
+flagged `retry`.
 """
 
 from __future__ import annotations
@@ -54,11 +57,14 @@ class DcReversalMeasurement(PointMeasurement):
         )
         channels = [format_cell(name) for name in self.channels]
         flag_cell = format_cell(flags)
+        after_fault = format_cell("|".join(sorted({*filter(None, flags.split("|")), "retry"})))
+        faults, faults_at_start = self.context.faults, self.context.faults()
+        readings = self.readings
         # Rows are formatted here, in one f-string each: this loop runs for every reading.
-        lines = []
         self.tripped = False
         for cycle in range(alternation.cycles):
             for step_index, polarity in enumerate(self.polarities):
+                lines = []
                 current = polarity * point.current_A
                 source.set_current(current)
                 clock.sleep(alternation.settle)
@@ -69,6 +75,8 @@ class DcReversalMeasurement(PointMeasurement):
                 for repeat in range(per_step):
                     for channel_index, meter in enumerate(meters):
                         voltage = meter.read()
+                        if faults() != faults_at_start:
+                            flag_cell = after_fault
                         voltages[channel_index, cycle, step_index, repeat] = voltage
                         lines.append(
                             f"{head}{repeat},{round(clock.now(), 6)!r},"
@@ -77,8 +85,9 @@ class DcReversalMeasurement(PointMeasurement):
                         )
                 if (cycle, step_index) in self.compliance_probes:
                     self.tripped = self.tripped or source.compliance_tripped()
+                readings.write_lines(lines)
+                readings.flush_if_due(clock.now())
         source.set_current(0.0)
-        self.readings.write_lines(lines)
         return voltages
 
     def check(self) -> None:
