@@ -126,7 +126,9 @@ class Stretch:
         self.loaded, self.rig, self.folder, self.record = loaded, rig, folder, record
         self.options, self.clock, self.signals = options, clock, signals
         try:
+            folder.check_own_files()
             self.log_handler = attach_log(folder)
+            folder.reserve_space()
         except OSError as error:
             raise InputError(f"the run folder cannot be written ({error.strerror})",
                              file=str(folder.path),
@@ -196,6 +198,7 @@ class Stretch:
 
     def finish(self, end: RunEnd) -> None:
         """Everything the end of a stretch does, each part attempted whatever the others did."""
+        self.folder.release_space()  # room for the status, the history and the log
         self.progress.activity("making the instruments safe")
         log.info("safe shutdown (%s)", end.state)
         instruments = self.instruments

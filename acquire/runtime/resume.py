@@ -53,6 +53,7 @@ def _resume(folder: RunFolder, progress: bool, keep_points_aside: bool,
             print(f"resume: {note}")
     folder.read_run_json()  # a clear error for a folder that is not a run's
     folder.check_writable()
+    folder.check_own_files()
     with folder.locked():
         return _resume_locked(folder, progress, keep_points_aside, signals)
 

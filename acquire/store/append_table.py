@@ -34,8 +34,18 @@ def format_cell(value: object) -> str:
     return text
 
 
+def _named(error: OSError, path: Path) -> OSError:
+    """The same error, naming the file (a failed write() does not say which)."""
+    if error.filename:
+        return error
+    return OSError(error.errno, error.strerror or str(error), str(path))
+
+
 class AppendTable:
-    """One CSV file with a fixed header; rows are buffered and made durable by `commit()`."""
+    """One CSV file with a fixed header; rows are buffered and made durable by `commit()`.
+
+    A write that fails (a full disk, a folder gone read-only) raises OSError naming the file.
+    """
 
     def __init__(self, folder: Path, schema: TableSchema) -> None:
         self.path = folder / schema.file_name
@@ -49,28 +59,37 @@ class AppendTable:
             self.commit()
 
     def append(self, row: Sequence[object]) -> None:
-        self._file.write(",".join(map(format_cell, row)) + "\n")
+        self.write_lines([",".join(map(format_cell, row)) + "\n"])
 
     def extend(self, rows: Iterable[Sequence[object]]) -> None:
-        self._file.writelines(",".join(map(format_cell, row)) + "\n" for row in rows)
+        self.write_lines(",".join(map(format_cell, row)) + "\n" for row in rows)
 
     def write_lines(self, lines: Iterable[str]) -> None:
         """Rows already formatted by the caller, each ending in a newline."""
-        self._file.writelines(lines)
+        try:
+            self._file.writelines(lines)
+        except OSError as error:
+            raise _named(error, self.path) from error
 
     def flush_if_due(self, run_clock_s: float) -> None:
         """Hand the rows to the operating system if FLUSH_INTERVAL_S of run clock has passed
         since the last time (a kill then loses nothing; fsync waits for the point's end)."""
         if run_clock_s - self._flushed_at_s >= FLUSH_INTERVAL_S:
-            self._file.flush()
             self._flushed_at_s = run_clock_s
+            try:
+                self._file.flush()
+            except OSError as error:
+                raise _named(error, self.path) from error
 
     def commit(self, durable: bool = True) -> None:
         """Flush to the operating system (survives a crash or kill); fsync also survives a
         power cut."""
-        self._file.flush()
-        if durable:
-            os.fsync(self._file.fileno())
+        try:
+            self._file.flush()
+            if durable:
+                os.fsync(self._file.fileno())
+        except OSError as error:
+            raise _named(error, self.path) from error
 
     def close(self) -> None:
         """Commit and close; the file is closed even if the commit fails (disk full)."""

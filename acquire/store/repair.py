@@ -112,10 +112,13 @@ def cut_damage(folder: Path, path: Path, table: TableText, keep_aside: bool,
         raise InputError(
             f"{path.name} is damaged at line {table.damaged_at} and has good rows after it",
             file=str(path), fix=what_to_do(path.name))
-    if not only_a_cut_line:
-        aside = _keep_aside(folder, path.stem + DAMAGED_SUFFIX, tail.replace("\0", ""))
+    kept = tail.replace("\0", "")
+    if not only_a_cut_line and kept.strip():
+        aside = _keep_aside(folder, path.stem + DAMAGED_SUFFIX, kept)
         notes.add(f"{path.name}: damaged from line {table.damaged_at} on; that part is kept "
                   f"in {aside.name}")
+    elif not only_a_cut_line:
+        notes.add(f"{path.name}: NUL bytes from line {table.damaged_at} on (a power cut) cut")
     atomic_write_text(path, table.header + "".join(table.rows))
 
 
@@ -156,10 +159,11 @@ def repair_tables(folder: Path, readings_schema: TableSchema, points_schema: Tab
     points_text = read_table_text(points_path, points_schema)
     if points_text is not None and points_text.damaged_at is not None:
         # Derived data: its good rows tell which points it held; it is rebuilt below.
-        aside = _keep_aside(folder, points_path.stem + DAMAGED_SUFFIX, points_text.damaged_tail
-                            .replace("\0", ""))
-        notes.add(f"{points_path.name}: damaged from line {points_text.damaged_at}; kept in "
-                  f"{aside.name}")
+        kept = points_text.damaged_tail.replace("\0", "")
+        if kept.strip() and "\n" in kept:
+            aside = _keep_aside(folder, points_path.stem + DAMAGED_SUFFIX, kept)
+            notes.add(f"{points_path.name}: damaged from line {points_text.damaged_at}; kept "
+                      f"in {aside.name}")
     readings = (readings_schema.read(readings_path)
                 if readings_text is not None and (readings_text.rows or readings_text.damaged_at)
                 else pd.DataFrame(columns=list(readings_schema.names)))
@@ -168,9 +172,9 @@ def repair_tables(folder: Path, readings_schema: TableSchema, points_schema: Tab
         aside_path = folder / PARTIAL_READINGS
         partial.to_csv(aside_path, mode="a", header=not aside_path.exists(), index=False)
         lines = readings_path.read_text(encoding="utf-8").splitlines(keepends=True)
-        kept = (line for line, keep in zip(lines[1:], ~readings.index.isin(partial.index))
+        rest = (line for line, keep in zip(lines[1:], ~readings.index.isin(partial.index))
                 if keep)
-        atomic_write_text(readings_path, lines[0] + "".join(kept))
+        atomic_write_text(readings_path, lines[0] + "".join(rest))
         notes.add(f"the rows of point(s) {_numbers(set(partial['point']))} cut short are kept "
                   f"in {PARTIAL_READINGS}; measured again")
     done_points = {int(number) for number in done["point"].unique()} if not done.empty else set()

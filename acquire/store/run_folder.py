@@ -22,9 +22,18 @@ from typing import Any
 from acquire.errors import InputError
 from acquire.store.file_lock import try_lock, unlock
 from acquire.store.run_record import RunRecord, parse_run_record
-from acquire.store.safe_files import atomic_write_text, open_for_append, open_for_update
+from acquire.store.safe_files import (
+    NO_FOLLOW,
+    atomic_write_text,
+    open_for_append,
+    open_for_update,
+)
 from acquire.version import __version__
 
+# Kept free on the run's disk while it runs and given back at its end, so that a run stopped
+# by a full disk can still write its status, its history and its log.
+RESERVE_FILE = ".flipsweep-reserve"
+RESERVE_BYTES = 1 << 20
 LIBRARIES = ("numpy", "pandas", "pint", "pydantic", "pyvisa", "pyvisa-sim", "pyvisa-py", "scipy")
 
 
@@ -72,7 +81,8 @@ class RunFolder:
             raise InputError("is a file, not a folder", file=str(self.path), key=("--out",),
                              fix="give a new folder for the run")
         # A lock left by a process killed before it wrote run.json holds no data.
-        if self.path.exists() and any(entry.name != "run.lock" for entry in self.path.iterdir()):
+        if self.path.exists() and any(entry.name not in ("run.lock", RESERVE_FILE)
+                                      for entry in self.path.iterdir()):
             raise InputError(
                 "the output folder is not empty", file=str(self.path), key=("--out",),
                 fix="give a new folder, or use 'flipsweep resume' to continue a run there",
@@ -159,6 +169,28 @@ class RunFolder:
         # A heartbeat needs atomicity, not durability: after a power cut it is stale anyway.
         atomic_write_text(self.status_json, json.dumps(status, indent=2) + "\n", durable=False)
 
+    def check_own_files(self) -> None:
+        """Refuse a run folder where one of the run's files is a symbolic link (exit 2)."""
+        for entry in self.path.iterdir():
+            if entry.is_symlink() and (entry.suffix in (".csv", ".json", ".log", ".lock")
+                                       or entry.name.endswith("-metadata.json")):
+                raise InputError(
+                    f"{entry.name} is a symbolic link; a run's files must be the files "
+                    "themselves", file=str(entry),
+                    fix="replace the link by the file it points to (or remove it)")
+
+    def reserve_space(self) -> None:
+        path = self.path / RESERVE_FILE
+        descriptor = os.open(path, os.O_WRONLY | os.O_CREAT | os.O_TRUNC | NO_FOLLOW, 0o644)
+        with open(descriptor, "wb") as handle:
+            handle.write(bytes(RESERVE_BYTES))
+            handle.flush()
+            os.fsync(handle.fileno())
+
+    def release_space(self) -> None:
+        with contextlib.suppress(OSError):
+            (self.path / RESERVE_FILE).unlink()
+
     @property
     def lock_file(self) -> Path:
         return self.path / "run.lock"
@@ -168,7 +200,13 @@ class RunFolder:
         """Hold the folder for one process: a second `resume` while the run still goes would
         drive the same instruments twice and interleave the files. The kernel drops the lock
         when the process ends, however it ends (kill -9 included)."""
-        handle = open_for_update(self.lock_file)
+        try:
+            handle = open_for_update(self.lock_file)
+        except OSError as error:
+            raise InputError(f"the run's lock file cannot be opened ({error.strerror})",
+                             file=str(self.lock_file),
+                             fix="make the folder writable; remove run.lock if it is a link"
+                             ) from None
         if not try_lock(handle):
             handle.seek(0)
             holder = handle.read().strip() or "another process"
