@@ -15,7 +15,7 @@ import pytest
 
 from acquire.store import append_table
 from acquire.store.run_folder import RESERVE_FILE
-from tests.conftest import SIMULATED_RIG, run_cli
+from tests.conftest import run_cli
 
 ROOT = Path(__file__).resolve().parents[1]
 # protocols/current_ladder.yaml: 16 points, 2 channels; readings rows per point (both channels):
