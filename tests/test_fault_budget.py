@@ -165,9 +165,10 @@ def fault_trial(tmp_path: Path, points: int, rate: float, seed: int) -> dict[str
     log = (out / "run.log").read_text()
     points_table = pd.read_csv(out / "points.csv", keep_default_na=False)
     readings = pd.read_csv(out / "readings.csv", keep_default_na=False)
-    noticed = (len(RETRY.findall(log)) + len(AGAIN.findall(log))
-               + log.count("retry ") - len(RETRY.findall(log))  # retries outside points
-               + log.count("safe shutdown: read back"))
+    # Each fault shows once: as a retry, as the last failure of a call out of retries, or as
+    # a read-back of the safe shutdown that got no answer.
+    noticed = (len(re.findall(r"; retry \d of \d in ", log))
+               + log.count("still failing after") + log.count("safe shutdown: read back"))
     return {"code": result.code, "out": result.out, "err": result.err, "log": log,
             "points": points_table, "readings": readings, "injected": injected,
             "noticed": noticed, "safe": safe,

@@ -165,7 +165,7 @@ def _run_plan(out: Path, plan: dict[str, Any], prepared: list[Prepared] | None,
                 if _closed(run_dir):
                     print(f"run {run_dir}: already done")
                     continue
-                code = resume_run(run_dir, progress=progress, signals=signals)
+                code = resume_run(run_dir, progress=progress, signals=signals, notify=False)
             else:
                 ready = prepared[index] if prepared else _prepare_entry(plan, entry, progress)
                 code = run_prepared(ready, run_dir, signals)

@@ -55,9 +55,12 @@ class Progress:
     def activity(self, text: str) -> None:
         """What the run is doing now ("ramping field 0.31 -> 0.5 T"): on the bar and in
         status.json."""
+        kind_changed = text.split(" ", 1)[0] != self.current_activity.split(" ", 1)[0]
         self.current_activity = text
-        if self._bar is not None and time.monotonic() - self._shown_activity_at >= (
-                ACTIVITY_REFRESH_S):
+        # A new kind of work shows at once; a wait's counting, at most every
+        # ACTIVITY_REFRESH_S of wall time.
+        if self._bar is not None and (kind_changed or time.monotonic() - self._shown_activity_at
+                                      >= ACTIVITY_REFRESH_S):
             self._shown_activity_at = time.monotonic()
             self._bar.set_description_str(text, refresh=True)
 
@@ -124,6 +127,7 @@ class Progress:
         self.state = state
         self.extra_status.update(extra or {})
         if self._bar is not None:
+            self._bar.set_description_str(state, refresh=False)
             self._bar.close()
         self.write_status()
 

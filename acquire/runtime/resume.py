@@ -34,18 +34,20 @@ def what_to_do(folder: RunFolder) -> Callable[[str], str]:
 
 def resume_run(out: Path, progress: bool = True, keep_points_aside: bool = False,
                rebuild: RebuildRequest | None = None,
-               signals: StopSignals | None = None) -> int:
+               signals: StopSignals | None = None, notify: bool = True) -> int:
+    """Continue the run in `out`. `signals`: the caller's (a night plan); `notify`: False when
+    the caller notifies instead."""
     folder = RunFolder(out)
     own_signals = signals is None
     signals = signals or StopSignals()
     if own_signals:
         with signals.installed():
-            return _resume(folder, progress, keep_points_aside, rebuild, signals)
-    return _resume(folder, progress, keep_points_aside, rebuild, signals)
+            return _resume(folder, progress, keep_points_aside, rebuild, signals, notify)
+    return _resume(folder, progress, keep_points_aside, rebuild, signals, notify)
 
 
 def _resume(folder: RunFolder, progress: bool, keep_points_aside: bool,
-            rebuild: RebuildRequest | None, signals: StopSignals) -> int:
+            rebuild: RebuildRequest | None, signals: StopSignals, notify: bool) -> int:
     folder.require_folder()
     if rebuild is not None:
         folder.check_writable()
@@ -55,11 +57,11 @@ def _resume(folder: RunFolder, progress: bool, keep_points_aside: bool,
     folder.check_writable()
     folder.check_own_files()
     with folder.locked():
-        return _resume_locked(folder, progress, keep_points_aside, signals)
+        return _resume_locked(folder, progress, keep_points_aside, signals, notify)
 
 
 def _resume_locked(folder: RunFolder, progress: bool, keep_points_aside: bool,
-                   signals: StopSignals) -> int:
+                   signals: StopSignals, notify: bool) -> int:
     record = folder.read_run_json()
     for kind, entry in (("protocol", record.protocol), ("rig", record.rig)):
         changed = entry.changed_files()
@@ -72,7 +74,7 @@ def _resume_locked(folder: RunFolder, progress: bool, keep_points_aside: bool,
             )
     options = RunOptions(simulate=record.options.simulate, seed=record.options.seed,
                          realtime=record.options.realtime, progress=progress,
-                         notify_in_rehearsal=record.options.notify_in_rehearsal)
+                         notify_in_rehearsal=record.options.notify_in_rehearsal, notify=notify)
     prepared = prepare(Path(record.protocol.path), Path(record.rig.path), options)
     loaded, rig, estimated = prepared.loaded, prepared.rig, prepared.estimated
     folder.check_space(estimated.data_bytes)
