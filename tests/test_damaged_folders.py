@@ -410,3 +410,18 @@ def test_a_temporary_file_name_taken_by_a_link_is_never_followed(
     assert victim.read_text() == "precious"
     assert (finished / "status.json").read_text() == "{}\n"
     assert not (finished / "status.json").is_symlink()
+
+
+def test_a_run_killed_after_its_last_point_is_made_safe_by_resume(finished: Path) -> None:
+    record_path = finished / "run.json"
+    record = json.loads(record_path.read_text())
+    record["history"] = record["history"][:-1]  # the kill came before the run could close
+    record_path.write_text(json.dumps(record))
+    result = run_cli(["resume", str(finished), "--quiet"])
+    assert result.code == 0, result.err
+    assert "resuming from point 16 of 16" in result.out
+    assert "done; safe state verified (source: current 0 mA, output off)" in result.out
+    assert_complete(finished)
+    # A run that closed properly is left alone.
+    again = run_cli(["resume", str(finished), "--quiet"])
+    assert again.code == 0 and again.out == f"run {finished}: all 16 points already done\n"
