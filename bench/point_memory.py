@@ -34,7 +34,7 @@ def write_protocol(folder: Path, cycles: int) -> Path:
 
 def peak(protocol: Path, out: Path) -> tuple[int, int]:
     tracemalloc.start()
-    start_run(protocol, RIG, out, RunOptions(True, 1, False, False))
+    start_run(protocol, RIG, out, RunOptions(simulate=True, seed=1, progress=False))
     _, top = tracemalloc.get_traced_memory()
     tracemalloc.stop()
     with open(out / "readings.csv", encoding="utf-8") as handle:

@@ -53,7 +53,7 @@ def test_eta_comes_from_the_estimate_until_the_pace_is_measured(tmp_path: Path) 
     clock.t = 30.0  # the first point took three times the estimate
 
     class Outcome:
-        class point:  # noqa: N801 - stands in for a Point
+        class point:
             number = 0
             current_A = 1e-3
         result: Any = None

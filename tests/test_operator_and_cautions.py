@@ -11,6 +11,7 @@ from typing import Any
 import pytest
 
 from acquire.runtime.cautions import CAUTION
+from acquire.runtime.execute import RunEnd
 from acquire.store.run_folder import host_description
 from tests.conftest import SIMULATED_RIG, CliResult, run_cli
 
@@ -59,11 +60,11 @@ def test_resume_shows_the_cautions_before_real_instruments(
         path.write_text(path.read_text().splitlines()[0] + "\n", encoding="utf-8")
     handed_over: list[Any] = []
 
-    def stand_in(*args: Any) -> int:  # the run itself, which would open the instruments
+    def stand_in(*args: Any) -> RunEnd:  # the run itself, which would open the instruments
         handed_over.append(args)
-        return 0
+        return RunEnd("done")
 
-    monkeypatch.setattr("acquire.runtime.resume._execute", stand_in)
+    monkeypatch.setattr("acquire.runtime.resume.execute", stand_in)
     result = run_cli(["resume", str(folder), "--quiet"])
     assert result.code == 0, result.err
     assert len(handed_over) == 1
