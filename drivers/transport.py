@@ -50,6 +50,10 @@ class Transport:
         # Commands sent since the error queue was last read: the queue does not say which
         # command an entry belongs to, so an error names all of them.
         self._unchecked: deque[str] = deque(maxlen=8)
+        # True from the start of a transaction until its reply is in: a transaction cut short
+        # (a timeout, a stop signal, a garbled reply) may leave its reply on the way, and the
+        # next query would read it as its own answer. The next transaction opens a new session.
+        self._out_of_step = False
         self.open()
 
     # -- session ---------------------------------------------------------------------
@@ -102,36 +106,38 @@ class Transport:
     def reconnect(self) -> None:
         self.close()
         self.open()
+        self._out_of_step = False
 
     def _live_session(self, command: str) -> Any:
         if self._session is None:
             raise CommunicationError(self.name, command, "the session is closed")
+        if self._out_of_step:
+            # A reply of an earlier, cut-short transaction may still arrive: a new session
+            # cannot receive it.
+            self.reconnect()
         return self._session
 
-    def write_text(self, command: str) -> None:
+    def _transaction(self, command: str, call: Any) -> Any:
+        session = self._live_session(command)
+        self._out_of_step = True  # stays so if anything, a stop signal included, cuts it short
         try:
-            self._live_session(command).write(command)
+            result = call(session)
         except _TRANSPORT_FAULTS as error:
             raise CommunicationError(
                 self.name, command, _describe_fault(error, self.spec.timeout)
             ) from error
+        self._out_of_step = False
+        return result
+
+    def write_text(self, command: str) -> None:
+        self._transaction(command, lambda session: session.write(command))
         self._unchecked.append(command)
 
     def read_text(self, command: str) -> str:
-        try:
-            return str(self._live_session(command).read())
-        except _TRANSPORT_FAULTS as error:
-            raise CommunicationError(
-                self.name, command, _describe_fault(error, self.spec.timeout)
-            ) from error
+        return str(self._transaction(command, lambda session: session.read()))
 
     def query_text(self, command: str) -> str:
-        try:
-            reply = str(self._live_session(command).query(command))
-        except _TRANSPORT_FAULTS as error:
-            raise CommunicationError(
-                self.name, command, _describe_fault(error, self.spec.timeout)
-            ) from error
+        reply = str(self._transaction(command, lambda session: session.query(command)))
         self._unchecked.append(command)
         return reply
 
@@ -170,6 +176,8 @@ class Transport:
         try:
             return self.dialect.parsers[template].parse(reply)
         except ReplyFormatError as error:
+            # Most often the reply of an earlier query read late: start the next one afresh.
+            self._out_of_step = True
             raise InstrumentError(self.name, command, f"unexpected reply: {error}") from None
 
     def ask_number(self, template: str) -> float:

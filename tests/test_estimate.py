@@ -156,6 +156,18 @@ def test_estimate_without_a_rig_says_so(make_protocol: MakeProtocol, cli: Callab
     assert "no rig given" in result.out
 
 
+def test_estimate_prints_the_peak_power(cli: Callable) -> None:
+    result: CliResult = cli(["estimate", str(PROTOCOLS / "angle_scan.yaml")])
+    assert result.code == 0
+    lines = {line.split("  ")[0]: line for line in result.out.splitlines()}
+    current_A = float(lines["peak current"].split()[2]) * 1e-3
+    voltage_V = float(lines["peak voltage"].split()[2])
+    power_W = float(lines["peak power"].split()[2]) * 1e-3
+    # Joule's law, P = I V (textbook), from the two other printed lines; the printed values
+    # have three significant digits, so they agree to about 0.5 %.
+    assert power_W == pytest.approx(current_A * voltage_V, rel=0.01)
+
+
 def test_format_duration() -> None:
     assert format_duration(12.34) == "12.3 s"
     assert format_duration(125) == "2 min 05 s"

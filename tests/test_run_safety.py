@@ -172,7 +172,10 @@ def test_signals_during_the_safe_shutdown_are_noted_and_the_source_is_left_safe(
     assert status["state"] == "interrupted" and status["safe_state_verified"] is True
     assert len(status["stop_signals"]) >= 2 and sent >= len(status["stop_signals"])
     assert [entry["event"] for entry in history] == ["start", "interrupted"]
-    assert history[-1]["reason"] == "interrupted by SIGTERM"
+    # SIGTERM is sent first, but when both are pending before the interpreter runs a handler,
+    # CPython runs them in signal-number order, SIGINT (2) first (# from memory): either may
+    # be the one acted on.
+    assert history[-1]["reason"] in ("interrupted by SIGTERM", "interrupted by SIGINT")
     assert history[-1]["stop_signals"] == status["stop_signals"]
 
 

@@ -158,3 +158,24 @@ def test_a_rehearsal_never_imports_the_rigs_driver_module(
                   "--quiet", "--out", str(tmp_path / "out")])
     assert result.code == 0, result.err
     assert not marker.exists()
+
+
+def test_a_real_run_with_a_bad_driver_class_stops_before_any_folder(
+    tmp_path: Path, monkeypatch: pytest.MonkeyPatch, cli: Cli
+) -> None:
+    package = tmp_path / "lab_meter_without_class"
+    package.mkdir()
+    (package / "__init__.py").write_text("")
+    monkeypatch.syspath_prepend(str(tmp_path))
+    data = yaml.safe_load(SIMULATED_RIG.read_text(encoding="utf-8"))
+    data.pop("visa_library", None)  # a real rig: the run would open these addresses
+    data["instruments"]["vxx"]["driver"] = "lab_meter_without_class:Meter"
+    rig = tmp_path / "rig.yaml"
+    rig.write_text(yaml.safe_dump(data), encoding="utf-8")
+    out = tmp_path / "out"
+    result = cli(["run", str(PROTOCOLS / "base.yaml"), "--rig", str(rig), "--quiet",
+                  "--out", str(out)])
+    assert result.code == 2, result.err
+    assert "has no class 'Meter'" in result.err and "driver" in result.err
+    assert "Traceback" not in result.err
+    assert not out.exists()

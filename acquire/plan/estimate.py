@@ -191,6 +191,9 @@ def render(result: Estimate, protocol: Any) -> str:
         lines.append(f"  density in {layer}{carrier}: {density:.3g} A/m^2")
     compliance = f" of {lim.compliance_V:g} V compliance" if lim.compliance_V else ""
     lines.append(f"peak voltage  {lim.expected_peak_voltage_V:.3g} V expected{compliance}")
+    if lim.peak_power_W > 0:
+        lines.append(f"peak power    {lim.peak_power_W * 1e3:.3g} mW in the channel "
+                     "(I^2 R, model resistance)")
     lines.append(f"data size     about {format_bytes(result.data_bytes)}")
     if result.advice:
         lines.append(f"faster order  {result.advice}")

@@ -106,6 +106,12 @@ def prepare(protocol_path: Path, rig_path: Path, options: RunOptions,
     if options.notify_in_rehearsal and not options.simulate:
         raise InputError("--notify applies to simulated runs (a real run always notifies)",
                          key=("--notify",), fix="drop --notify")
+    if not options.simulate:
+        from drivers.factory import driver_class
+
+        for name, spec in rig.rig.instruments.items():
+            if spec.driver is not None:
+                driver_class(name, spec)  # a bad `driver:` is exit 2 before any folder
     if options.simulate:
         from acquire.runtime.simulation import sample_for
 
