@@ -49,3 +49,5 @@ TemperatureRate = Annotated[float, parsed_as(units.TEMPERATURE_RATE),
                             schema_of(units.TEMPERATURE_RATE)]
 Frequency = Annotated[float, parsed_as(units.FREQUENCY), schema_of(units.FREQUENCY)]
 Power = Annotated[float, parsed_as(units.POWER), schema_of(units.POWER)]
+NoiseDensity = Annotated[float, parsed_as(units.NOISE_DENSITY), schema_of(units.NOISE_DENSITY)]
+Ratio = Annotated[float, parsed_as(units.RATIO), schema_of(units.RATIO)]

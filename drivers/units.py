@@ -20,6 +20,9 @@ import pint
 
 UNIT_REGISTRY: pint.UnitRegistry = pint.UnitRegistry(autoconvert_offset_to_baseunit=True)
 UNIT_REGISTRY.define("ppm = 1e-6 = _ppm_")
+UNIT_REGISTRY.define("ppb = 1e-9 = _ppb_")
+# A noise density is written per root hertz: '20 nV/rtHz' (our grammar allows no '^0.5').
+UNIT_REGISTRY.define("rtHz = hertz ** 0.5")
 
 
 @dataclass(frozen=True)
@@ -46,10 +49,13 @@ ANGLE_RATE = Dimension("angular speed", "deg/s", "10 deg/s")
 TEMPERATURE_RATE = Dimension("temperature rate", "K/s", "2 K/min")
 FREQUENCY = Dimension("frequency", "Hz", "50 Hz")
 POWER = Dimension("power", "W", "1 mW")
+NOISE_DENSITY = Dimension("voltage noise density", "V/rtHz", "20 nV/rtHz")
+RATIO = Dimension("ratio", "dimensionless", "0.05 ppm")  # ppm, ppb or percent
 
 ALL_DIMENSIONS = (
     CURRENT, FIELD, ANGLE, TEMPERATURE, TIME, LENGTH, RESISTIVITY, RESISTANCE,
     CURRENT_DENSITY, VOLTAGE, FIELD_RATE, ANGLE_RATE, TEMPERATURE_RATE, FREQUENCY, POWER,
+    NOISE_DENSITY, RATIO,
 )
 
 
@@ -193,7 +199,10 @@ def to_si(value: object, dimension: Dimension) -> float:
             f"cannot read {value!r} as {article(dimension.name)}: write one number and a "
             f"unit, like {dimension.example!r} (no arithmetic)"
         ) from None
-    if not isinstance(quantity, pint.Quantity) or quantity.unitless:
+    # ppm and percent are unitless to pint, yet written as units: a ratio needs one of them.
+    written = bool(_unit_names(quantity)) if isinstance(quantity, pint.Quantity) else False
+    if not isinstance(quantity, pint.Quantity) or (
+            quantity.unitless and not (dimension is RATIO and written)):
         raise UnitError(
             f"{value!r} has no unit; write the {dimension.name} with its unit, "
             f"like {dimension.example!r}"
@@ -210,6 +219,9 @@ def to_si(value: object, dimension: Dimension) -> float:
         )
     elif dimension is FIELD_RATE:
         result = _field_rate(quantity)
+    elif dimension is RATIO:
+        plain = set(_unit_names(quantity)) <= {"ppm", "ppb", "percent", "permille"}
+        result = float(quantity.to("dimensionless").magnitude) if plain else None
     else:
         try:
             result = float(quantity.to(dimension.si_unit).magnitude)

@@ -231,8 +231,10 @@ class BilayerSample:
         temperature_K: float,
         integration_s: float,
         autozero: bool = False,
+        meter_noise_V_per_rtHz: float | None = None,
     ) -> float:
-        """Standard deviation of one reading, volts.
+        """Standard deviation of one reading, volts; `meter_noise_V_per_rtHz` is the
+        voltmeter's own input noise (None: the parameter `noise_density_V_per_rtHz`).
 
         A reading averages for integration_s; its equivalent noise bandwidth is
         df = 1 / (2 * integration_s). Voltmeter noise and the sample's Johnson-Nyquist
@@ -253,7 +255,9 @@ class BilayerSample:
             longitudinal if probe == "longitudinal" else longitudinal * p.width_m / p.length_m
         )
         bandwidth_Hz = 1.0 / (2.0 * integration_s)
-        meter2 = p.noise_density_V_per_rtHz**2 * (2.0 if autozero else 1.0)
+        meter = p.noise_density_V_per_rtHz if meter_noise_V_per_rtHz is None else (
+            meter_noise_V_per_rtHz)
+        meter2 = meter**2 * (2.0 if autozero else 1.0)
         density2 = meter2 + 4.0 * BOLTZMANN_J_PER_K * device_K * source_ohm
         return math.sqrt(density2 * bandwidth_Hz)
 
@@ -265,9 +269,11 @@ class BilayerSample:
         time_s: float,
         integration_s: float,
         autozero: bool = False,
+        meter_noise_V_per_rtHz: float | None = None,
     ) -> float:
         """One voltmeter reading at signed current_A, bath temperature and run time;
-        integration_s is the reading's own integration (an autozero's zero comes on top)."""
+        integration_s is the reading's own integration (an autozero's zero comes on top);
+        meter_noise_V_per_rtHz as in noise_sigma_V."""
         _check_probe(probe)
         p = self._params
         device_K = self.device_temperature_K(current_A, temperature_K)
@@ -276,7 +282,8 @@ class BilayerSample:
         )
         offset = p.thermoelectric_offset_V if probe == "longitudinal" else p.transverse_offset_V
         clean = offset + p.drift_V_per_s * time_s + current_A * resistance
-        sigma = self.noise_sigma_V(probe, current_A, temperature_K, integration_s, autozero)
+        sigma = self.noise_sigma_V(probe, current_A, temperature_K, integration_s, autozero,
+                                   meter_noise_V_per_rtHz)
         return clean + sigma * float(self._rng.standard_normal())
 
     def truth(self) -> dict[str, object]:

@@ -27,7 +27,8 @@ def did_you_mean(word: str, options: list[str] | tuple[str, ...]) -> str | None:
 
 def _union_tags() -> set[str]:
     # Union members show up in pydantic's error locations; they are not keys the user wrote.
-    return {*axis_names(), *role_names(), "float", "str", "literal['auto']", "literal['hold']"}
+    return {*axis_names(), *role_names(), "float", "str", "literal['auto']", "literal['hold']",
+            "cycle_count", "cycle_target"}
 
 
 def _strip(annotation: Any) -> Any:

@@ -21,7 +21,7 @@ FIRST_POINT_TOLERANCE = 0.30
 SHEET_RESISTANCE_FACTOR = 3.0
 
 
-def _longitudinal(channel: str, spec: Any) -> bool:
+def is_longitudinal(channel: str, spec: Any) -> bool:
     # The rig's `probe`, else the channel's name: the rule of acquire.analysis.fit_context.
     probe = getattr(spec, "probe", None)
     if probe in ("longitudinal", "transverse"):
@@ -57,7 +57,7 @@ def first_point_warning(loaded: Any, rig: Any, point_number: int, result: Any) -
     channels = list(loaded.mode.channels(loaded.protocol))
     instruments = rig.rig.instruments
     index = next((i for i, name in enumerate(channels)
-                  if _longitudinal(name, instruments.get(name))), None)
+                  if is_longitudinal(name, instruments.get(name))), None)
     if index is None:
         return None
     measured = float(resistances[index])

@@ -63,6 +63,9 @@ class PointMeasurement(ABC):
     def check(self) -> None:
         """Raise PointProblem for what the instruments reported during the point."""
 
+    def stored(self, point: Point, result: Any) -> None:  # noqa: B027 - most need nothing
+        """The runner stored this point's result in the points table."""
+
     @abstractmethod
     def rest(self) -> None:
         """Leave the excitation at rest while the runner waits to retry (no retries itself)."""
@@ -91,8 +94,10 @@ class AcquisitionMode(ABC):
         """Rows of the readings table a complete point writes (one attempt)."""
 
     @abstractmethod
-    def point_cost(self, protocol: Any, timing: RigTiming) -> PointCost:
-        """Seconds one point takes, by what they are spent on."""
+    def point_cost(self, protocol: Any, timing: RigTiming,
+                   cycles: float | None = None) -> PointCost:
+        """Seconds one point takes, by what they are spent on; `cycles` for a mode whose
+        points vary in length (None: the longest)."""
 
     @abstractmethod
     def measurement(self, context: MeasureContext) -> PointMeasurement: ...
@@ -127,3 +132,16 @@ class AcquisitionMode(ABC):
 
     def readings_count(self, protocol: Any, points: int) -> int:
         return points * self.readings_per_point(protocol)
+
+    def fixed_readings_per_point(self, protocol: Any) -> int | None:
+        """Rows of a complete point when every point has as many (None: they vary, and a
+        point is complete once the points table holds it)."""
+        return self.readings_per_point(protocol)
+
+    def noise_budget(self, protocol: Any, rig: Any, plans: Any) -> Any | None:
+        """The predicted errors of a point (acquire.plan.noise_budget), or None."""
+        return None
+
+    def expected_cycles(self, protocol: Any, budget: Any) -> float | None:
+        """Mean cycles per point a budget predicts, for a mode whose points vary; else None."""
+        return None

@@ -12,6 +12,7 @@ from typing import Any
 from acquire.inputs.load import LoadedProtocol, LoadedRig
 from acquire.modes.base import AcquisitionMode
 from acquire.plan.limits import LimitReport, check_limits
+from acquire.plan.noise_budget import NoiseBudget, render_budget
 from acquire.plan.schedule import LoopPlan, count_points, plans_from
 from acquire.plan.timing import RigTiming
 from drivers.roles import all_roles
@@ -32,6 +33,10 @@ class Estimate:
     rig_given: bool
     advice: str | None = None
     notes: list[str] = field(default_factory=list)
+    noise: NoiseBudget | None = None
+    # Precision-targeted cycles: duration_s is the expected night, this the longest one.
+    worst_duration_s: float | None = None
+    expected_cycles: float | None = None
 
 
 def _axis_moves_s(plans: Sequence[LoopPlan], depth: int,
@@ -84,10 +89,12 @@ def _moves_breakdown(
 
 
 def duration_of(
-    protocol: Any, mode: AcquisitionMode, plans: Sequence[LoopPlan], timing: RigTiming
+    protocol: Any, mode: AcquisitionMode, plans: Sequence[LoopPlan], timing: RigTiming,
+    cycles: float | None = None,
 ) -> tuple[float, dict[str, float]]:
+    """`cycles`: the mean cycles per point where points vary (None: the most)."""
     points = count_points(plans)
-    cost = mode.point_cost(protocol, timing)
+    cost = mode.point_cost(protocol, timing, cycles)
     breakdown = _moves_breakdown(protocol, mode, plans, timing)
     breakdown["current settling"] = points * cost.settling_s
     breakdown["integration"] = points * cost.integration_s
@@ -136,8 +143,15 @@ def estimate(loaded: LoadedProtocol, rig: LoadedRig | None) -> Estimate:
     channels = mode.channels(protocol)
     timing = RigTiming.of(rig.rig if rig else None, channels, mode.excitation_role)
     points = count_points(plans)
-    readings = mode.readings_count(protocol, points)
-    duration, breakdown = duration_of(protocol, mode, plans, timing)
+    most_readings = mode.readings_count(protocol, points)
+    worst, worst_breakdown = duration_of(protocol, mode, plans, timing)
+    budget = mode.noise_budget(protocol, rig, plans)
+    expected = mode.expected_cycles(protocol, budget) if budget is not None else None
+    if expected is None:
+        duration, breakdown, readings = worst, worst_breakdown, most_readings
+    else:
+        duration, breakdown = duration_of(protocol, mode, plans, timing, expected)
+        readings = round(most_readings * expected / protocol.alternation.max_cycles)
     points_rows = points * len(channels)
     notes = list(limit_report.warnings)
     if rig is None:
@@ -148,10 +162,14 @@ def estimate(loaded: LoadedProtocol, rig: LoadedRig | None) -> Estimate:
         duration_s=duration,
         breakdown_s=breakdown,
         limits=limit_report,
-        data_bytes=readings * READING_ROW_BYTES + points_rows * POINT_ROW_BYTES,
+        # The disk must hold the longest night.
+        data_bytes=most_readings * READING_ROW_BYTES + points_rows * POINT_ROW_BYTES,
         rig_given=rig is not None,
-        advice=loop_order_advice(protocol, mode, plans, timing, duration),
+        advice=loop_order_advice(protocol, mode, plans, timing, worst),
         notes=notes,
+        noise=budget,
+        worst_duration_s=worst if expected is not None else None,
+        expected_cycles=expected,
     )
 
 
@@ -180,6 +198,10 @@ def render(result: Estimate, protocol: Any) -> str:
         f"readings      {result.readings}",
         f"duration      {format_duration(result.duration_s)}",
     ]
+    if result.worst_duration_s is not None and result.expected_cycles is not None:
+        lines[-1] += (f" expected ({result.expected_cycles:.3g} cycles a point on average); "
+                      f"at most {format_duration(result.worst_duration_s)} (every point at "
+                      f"{protocol.alternation.max_cycles} cycles)")
     for name, seconds in result.breakdown_s.items():
         if seconds > 0:
             share = seconds / result.duration_s if result.duration_s else 0
@@ -195,6 +217,8 @@ def render(result: Estimate, protocol: Any) -> str:
         lines.append(f"peak power    {lim.peak_power_W * 1e3:.3g} mW in the channel "
                      "(I^2 R, model resistance)")
     lines.append(f"data size     about {format_bytes(result.data_bytes)}")
+    if result.noise is not None:
+        lines.extend(render_budget(result.noise))
     if result.advice:
         lines.append(f"faster order  {result.advice}")
     lines.extend(f"note          {note}" for note in result.notes)

@@ -288,6 +288,8 @@ class Runner:
                 self.activity(f"measuring point {step.point.number}")
                 outcome = self.measure_with_policy(step.point)
             self.points.extend(self.point_rows(outcome))
+            if outcome.result is not None:
+                self.measurement.stored(step.point, outcome.result)
             self._commit_point()
             self.on_point(outcome)
             if note := first_point_warning(self.loaded, self.rig, step.point.number,

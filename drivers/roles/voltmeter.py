@@ -9,7 +9,7 @@ from pydantic import Field
 from drivers.driver_base import DialectDriver
 from drivers.errors import InstrumentError
 from drivers.interface import Instrument
-from drivers.quantities import Voltage
+from drivers.quantities import NoiseDensity, Voltage
 from drivers.roles.base import Role
 from drivers.spec import InstrumentSpec
 
@@ -18,6 +18,10 @@ SCPI_OVERRANGE_V = 9.9e37
 DEFAULT_NPLC = 1.0
 # Autozero measures the zero as well: about twice the integration (common practice).
 AUTOZERO_TIME_FACTOR = 2.0
+# Input voltage noise of a good nanovoltmeter-class DC meter on its lowest ranges is some
+# 10-50 nV/rtHz (common practice); the default is a middle value. The simulated meter uses the
+# same number, so the noise budget `estimate` predicts is what a rehearsal shows.
+DEFAULT_NOISE_DENSITY_V_PER_RTHZ = 20e-9
 
 
 class Voltmeter(Instrument, Protocol):
@@ -34,6 +38,12 @@ class VoltmeterSpec(InstrumentSpec):
         default=None, description="a fixed range like '100 mV', or 'auto' (the default)"
     )
     autozero: bool | None = Field(default=None, description="measure the zero at every reading")
+    noise_density: NoiseDensity | None = Field(
+        default=None, gt=0,
+        description="input voltage noise density of the meter, white, one-sided, like "
+        "'20 nV/rtHz' (20 nV/rtHz when unset); `estimate` predicts each point's error from it, "
+        "and the simulated meter adds this noise",
+    )
     probe: Literal["longitudinal", "transverse"] | None = Field(
         default=None, description="what the voltage pair measures (from its name when unset)"
     )
@@ -41,6 +51,12 @@ class VoltmeterSpec(InstrumentSpec):
     @property
     def nplc_or_default(self) -> float:
         return self.nplc if self.nplc is not None else DEFAULT_NPLC
+
+    @property
+    def noise_density_or_default(self) -> float:
+        if self.noise_density is not None:
+            return self.noise_density
+        return DEFAULT_NOISE_DENSITY_V_PER_RTHZ
 
     @property
     def range_V(self) -> float | None:

@@ -20,6 +20,7 @@ SCPI_OVERRANGE_V = 9.9e37  # SCPI's +infinity, what a voltmeter reads beyond its
 class MeterState:
     probe: str
     latency_s: float
+    noise_density_V_per_rtHz: float | None = None  # None: the sample model's parameter
     nplc: float = DEFAULT_NPLC
     autozero: bool = True
     range_V: float | None = None  # None: autorange
@@ -29,7 +30,10 @@ class SimulatedVoltmeter:
     def __init__(self, world: SimulatedWorld, name: str, spec: Any) -> None:
         self.world = world
         self.name = name
+        # The rig's `noise_density` (the same key the estimate's noise budget reads) wins
+        # over the simulation's `noise_density_V_per_rtHz`; the defaults are equal.
         self.state = MeterState(spec.probe or "longitudinal", spec.latency,
+                                getattr(spec, "noise_density", None),
                                 nplc=spec.nplc or DEFAULT_NPLC)
 
     @property
@@ -63,6 +67,7 @@ class SimulatedVoltmeter:
         volts = world.sample.voltage(
             state.probe, world.state("current_A"), world.state("temperature_K"), now,
             self.integration_s(), autozero=state.autozero,
+            meter_noise_V_per_rtHz=state.noise_density_V_per_rtHz,
         )
         world.clock.sleep(self.reading_time_s() + state.latency_s)
         if state.range_V is not None and abs(volts) > state.range_V * OVERRANGE_FRACTION:
@@ -81,7 +86,8 @@ class SimulatedVoltmeter:
         }
 
     def reset(self) -> None:
-        self.state = MeterState(self.state.probe, self.state.latency_s)
+        self.state = MeterState(self.state.probe, self.state.latency_s,
+                                self.state.noise_density_V_per_rtHz)
 
     def settings(self) -> dict[str, object]:
         return {"overrange_fraction": OVERRANGE_FRACTION,

@@ -7,19 +7,28 @@ measure.py (runner-side), the reduction in reduction.py (pure).
 
 from __future__ import annotations
 
-from typing import Any, Literal
+from collections.abc import Sequence
+from typing import Annotated, Any, Literal
 
 import numpy as np
 import pandas as pd
-from pydantic import Field, field_validator
+from pydantic import Discriminator, Field, Tag, field_validator
 
 from acquire.inputs.protocol import ProtocolBase, Strict
+from acquire.inputs.stack import StackGeometry
 from acquire.modes.base import (
     AcquisitionMode,
     MeasureContext,
     PointMeasurement,
     PointSummary,
 )
+from acquire.modes.dc_reversal.budget import (
+    channel_noise,
+    noise_budget,
+    prior_cycle_variance_V2,
+    target_channel,
+)
+from acquire.modes.dc_reversal.cycle_target import POOLED_DOF, CyclePlanner, CycleTarget
 from acquire.modes.dc_reversal.measure import DcReversalMeasurement
 from acquire.modes.dc_reversal.reduction import (
     PATTERN_SYMBOLS,
@@ -27,11 +36,16 @@ from acquire.modes.dc_reversal.reduction import (
     reduce_blocks,
     reduce_readings,
 )
-from acquire.plan.schedule import Point, movable_axis_names
+from acquire.plan.noise_budget import ROOM_TEMPERATURE_K, NoiseBudget
+from acquire.plan.schedule import LoopPlan, Point, movable_axis_names
 from acquire.plan.timing import PointCost, RigTiming
 from acquire.store.csvw import Column
 from acquire.store.tables import TableSchema, readback_columns, setpoint_columns
 from drivers.quantities import Duration
+
+
+def _count_or_target(value: object) -> str:
+    return "cycle_target" if isinstance(value, (dict, CycleTarget)) else "cycle_count"
 
 
 class Alternation(Strict):
@@ -41,8 +55,21 @@ class Alternation(Strict):
         default="+0-", description="current polarities of one cycle, from '+', '0', '-', with "
         "as many '+' as '-' (e.g. '+-', '+0-', '+0-0', '+--+'); a '0' gives the offset V0",
     )
-    cycles: int = Field(default=4, ge=1, le=10000, description="cycles averaged per point")
+    cycles: Annotated[
+        Annotated[Annotated[int, Field(ge=1, le=10000)], Tag("cycle_count")]
+        | Annotated[CycleTarget, Tag("cycle_target")],
+        Discriminator(_count_or_target),
+    ] = Field(
+        default=4,
+        description="cycles averaged per point: a number, or {target: 0.05 ppm, min: 3, "
+        "max: 40} for as many as the unidirectional ratio's error needs")
     settle: Duration = Field(default=0.02, ge=0, description="wait after each current change")
+
+    @field_validator("cycles", mode="before")
+    @classmethod
+    def no_yes_for_cycles(cls, value: object) -> object:
+        # As for every count (ProtocolBase): YAML's yes must not become 1 cycle.
+        return str(value).lower() if isinstance(value, bool) else value
 
     @field_validator("pattern")
     @classmethod
@@ -63,8 +90,25 @@ class Alternation(Strict):
         return pattern
 
     @property
+    def max_cycles(self) -> int:
+        """The cycles of a point at most (all of them with a fixed number)."""
+        return self.cycles.max if isinstance(self.cycles, CycleTarget) else self.cycles
+
+    @property
+    def target(self) -> CycleTarget | None:
+        return self.cycles if isinstance(self.cycles, CycleTarget) else None
+
+    @property
     def polarities(self) -> tuple[int, ...]:
         return tuple(PATTERN_SYMBOLS[symbol] for symbol in self.pattern)
+
+
+def _cycles_record(alternation: Alternation) -> int | dict[str, Any]:
+    target = alternation.target
+    if target is None:
+        return int(alternation.max_cycles)
+    return {"target_ratio": target.target, "min": target.min, "max": target.max,
+            "channel": target.channel}
 
 
 class Readings(Strict):
@@ -123,7 +167,8 @@ POINTS = TableSchema(
         Column("current_density_A_m2", "double", "A/m^2",
                "current density in the carrier layer (parallel-resistor model)"),
         Column("channel", "string", "", "voltmeter name"),
-        Column("n_cycles", "integer", "", "cycles averaged"),
+        Column("n_cycles", "integer", "",
+               "cycles averaged (precision-targeted cycles: what the point used)"),
         Column("resistance_ohm", "double", "ohm", "(V+ - V-)/(2I), mean over cycles"),
         Column("resistance_ohm_err", "double", "ohm", "standard error over cycles"),
         Column("unidirectional_ohm", "double", "ohm", "(V+ + V- - 2V0)/(2I), mean over cycles"),
@@ -155,11 +200,16 @@ class DcReversal(AcquisitionMode):
 
     def readings_per_point(self, protocol: Any) -> int:
         alternation = protocol.alternation
-        return (alternation.cycles * len(alternation.pattern) * protocol.readings.per_step
+        return (alternation.max_cycles * len(alternation.pattern) * protocol.readings.per_step
                 * len(protocol.readings.channels))
 
-    def point_cost(self, protocol: Any, timing: RigTiming) -> PointCost:
-        steps = protocol.alternation.cycles * len(protocol.alternation.pattern)
+    def fixed_readings_per_point(self, protocol: Any) -> int | None:
+        return None if protocol.alternation.target else self.readings_per_point(protocol)
+
+    def point_cost(self, protocol: Any, timing: RigTiming,
+                   cycles: float | None = None) -> PointCost:
+        cycles = protocol.alternation.max_cycles if cycles is None else cycles
+        steps = cycles * len(protocol.alternation.pattern)
         per_step = protocol.readings.per_step
         channels = protocol.readings.channels
         latency_per_reading = sum(timing.reading_latency_s[name] for name in channels)
@@ -172,8 +222,49 @@ class DcReversal(AcquisitionMode):
             + 2 * timing.source_latency_s,  # compliance and error-queue checks at each point
         )
 
+    def check(self, loaded: Any) -> None:
+        target = loaded.protocol.alternation.target
+        channels = loaded.protocol.readings.channels
+        if target is not None and target.channel is not None and target.channel not in channels:
+            raise loaded.document.source.error(
+                f"cycles.channel {target.channel!r} is not one of the channels read",
+                ("alternation", "cycles", "channel"),
+                f"use one of {', '.join(channels)}, or leave it out (the first longitudinal)")
+
+    def noise_budget(self, protocol: Any, rig: Any, plans: Sequence[LoopPlan]) -> NoiseBudget:
+        return noise_budget(protocol, rig.rig if rig is not None else None, plans,
+                            rig.document.source if rig is not None else None)
+
+    def expected_cycles(self, protocol: Any, budget: NoiseBudget) -> float | None:
+        """Mean cycles per point the budget predicts: every current of the loop has as many
+        points, and all channels of a point share its cycles."""
+        if protocol.alternation.target is None:
+            return None
+        first = budget.channels[0].channel
+        counts = [point.cycles for point in budget.points if point.channel == first]
+        return sum(counts) / len(counts) if counts else float(protocol.alternation.max_cycles)
+
     def measurement(self, context: MeasureContext) -> PointMeasurement:
-        return DcReversalMeasurement(context)
+        protocol = context.protocol
+        target = protocol.alternation.target
+        if target is None:
+            return DcReversalMeasurement(context)
+        rig = context.instruments.rig
+        steering = target_channel(protocol, rig)
+        noise = next(noise for noise in channel_noise(protocol, rig, ROOM_TEMPERATURE_K)
+                     if noise.channel == steering)
+        planner = CyclePlanner(target, prior_cycle_variance_V2(protocol, noise),
+                               StackGeometry.from_sample(protocol.sample).resistance_ohm)
+        # A resumed run goes on from the points already stored (rebuilt from the readings).
+        stored = context.tables[POINTS.file_name].path
+        if stored.exists() and stored.stat().st_size:
+            earlier = POINTS.read(stored)
+            earlier = earlier[earlier["channel"] == steering].sort_values("point", kind="stable")
+            for row in earlier.tail(POOLED_DOF + 1).itertuples():
+                planner.record(row.current_A, int(row.n_cycles), row.unidirectional_ohm_err,
+                               row.resistance_ohm)
+        return DcReversalMeasurement(context, planner,
+                                     list(protocol.readings.channels).index(steering))
 
     def reduce_point(self, protocol: Any, point: Point, raw: Any) -> BlockResult:
         amplitude = np.full(len(protocol.readings.channels), point.current_A)
@@ -202,7 +293,7 @@ class DcReversal(AcquisitionMode):
         return {
             "alternation": {
                 "pattern": protocol.alternation.pattern,
-                "cycles": protocol.alternation.cycles,
+                "cycles": _cycles_record(protocol.alternation),
                 "settle_s": protocol.alternation.settle,
             },
             "readings": protocol.readings.model_dump(),

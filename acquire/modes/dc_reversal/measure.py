@@ -11,16 +11,21 @@ flagged `retry`.
 
 from __future__ import annotations
 
+from typing import Any
+
 import numpy as np
 
 from acquire.modes.base import MeasureContext, PointMeasurement, PointProblem
+from acquire.modes.dc_reversal.cycle_target import CyclePlanner
 from acquire.plan.schedule import Point, movable_axis_names
 from acquire.store.append_table import format_cell
 from drivers.roles import current_source, voltmeter
 
 
 class DcReversalMeasurement(PointMeasurement):
-    def __init__(self, context: MeasureContext) -> None:
+    def __init__(self, context: MeasureContext, planner: CyclePlanner | None = None,
+                 steering_index: int = 0) -> None:
+        """`planner`: precision-targeted cycles, following channel `steering_index`."""
         self.context = context
         protocol = context.protocol
         self.alternation = protocol.alternation
@@ -34,11 +39,22 @@ class DcReversalMeasurement(PointMeasurement):
         ]
         self.readings = context.tables["readings.csv"]
         self.tripped = False
-        # Compliance is a live state: ask while current flows, at the first and the last
-        # nonzero step of the point (two transactions, not one per step).
-        nonzero = [index for index, polarity in enumerate(self.polarities) if polarity]
-        self.compliance_probes = {(0, nonzero[0]), (self.alternation.cycles - 1, nonzero[-1])}
+        self.planner = planner
+        self.steering_index = steering_index
+        self.nonzero = [index for index, polarity in enumerate(self.polarities) if polarity]
         self.used = context.used_axes
+
+    def cycles_for(self, point: Point) -> int:
+        if self.planner is None:
+            return int(self.alternation.cycles)
+        return self.planner.cycles(point.current_A)
+
+    def stored(self, point: Point, result: Any) -> None:
+        if self.planner is not None:
+            index = self.steering_index
+            self.planner.record(point.current_A, result.n_cycles,
+                                float(result.unidirectional_ohm_err[index]),
+                                float(result.resistance_ohm[index]))
 
     def start(self) -> None:
         self.source.set_output(True)
@@ -49,8 +65,11 @@ class DcReversalMeasurement(PointMeasurement):
     def measure(self, point: Point, attempt: int, flags: str) -> np.ndarray:
         alternation, per_step, clock = self.alternation, self.per_step, self.context.clock
         source, meters = self.source, self.meters
-        voltages = np.empty((len(self.channels), alternation.cycles, len(self.polarities),
-                             per_step))
+        cycles = self.cycles_for(point)
+        # Compliance is a live state: ask while current flows, at the first and the last
+        # nonzero step of the point (two transactions, not one per step).
+        probes = {(0, self.nonzero[0]), (cycles - 1, self.nonzero[-1])}
+        voltages = np.empty((len(self.channels), cycles, len(self.polarities), per_step))
         setpoints = ",".join(
             format_cell(value if axis in self.used else None)
             for axis, value in zip(movable_axis_names(), point.setpoints)
@@ -62,7 +81,7 @@ class DcReversalMeasurement(PointMeasurement):
         readings = self.readings
         # Rows are formatted here, in one f-string each: this loop runs for every reading.
         self.tripped = False
-        for cycle in range(alternation.cycles):
+        for cycle in range(cycles):
             for step_index, polarity in enumerate(self.polarities):
                 lines = []
                 current = polarity * point.current_A
@@ -83,7 +102,7 @@ class DcReversalMeasurement(PointMeasurement):
                             f"{clock.utc().isoformat()},{middle}{channels[channel_index]},"
                             f"{voltage!r},{readbacks},{flag_cell}\n"
                         )
-                if (cycle, step_index) in self.compliance_probes:
+                if (cycle, step_index) in probes:
                     self.tripped = self.tripped or source.compliance_tripped()
                 readings.write_lines(lines)
                 readings.flush_if_due(clock.now())
