@@ -81,7 +81,7 @@ def _resume_locked(folder: RunFolder, progress: bool, keep_points_aside: bool,
     mode = loaded.mode
     readings_schema, points_schema = mode.tables()[0], mode.tables()[-1]
     repaired = repair_tables(folder.path, readings_schema, points_schema,
-                             mode.readings_per_point(loaded.protocol), keep_points_aside,
+                             mode.fixed_readings_per_point(loaded.protocol), keep_points_aside,
                              what_to_do(folder))
     for note in repaired.notes:
         print(f"resume: {note}")

@@ -123,11 +123,22 @@ def cut_damage(folder: Path, path: Path, table: TableText, keep_aside: bool,
 
 
 def split_complete_points(
-    readings: pd.DataFrame, rows_per_point: int
+    readings: pd.DataFrame, rows_per_point: int | None, stored: set[int] | None = None
 ) -> tuple[pd.DataFrame, pd.DataFrame]:
-    """(rows of done points, rows of partial points). Done: every row of the latest attempt."""
+    """(rows of done points, rows of partial points). Done: every row of the latest attempt.
+
+    `rows_per_point` None: points differ in length (precision-targeted cycles), so a count
+    cannot tell. Points are measured in order, so every point before the last one in the file
+    is done; the last one is done when the points table (`stored`) holds it, for its rows are
+    written after its readings."""
     if readings.empty:
         return readings, readings
+    if rows_per_point is None:
+        numbers = set(readings["point"].unique())
+        last = max(numbers)
+        done = numbers - ({last} - (stored or set()))
+        keep = readings["point"].isin(done)
+        return readings[keep], readings[~keep]
     latest = readings.groupby("point")["attempt"].transform("max")
     counts = readings[readings["attempt"] == latest].groupby("point").size()
     done = set(counts[counts == rows_per_point].index)
@@ -147,7 +158,7 @@ class Repaired:
 
 
 def repair_tables(folder: Path, readings_schema: TableSchema, points_schema: TableSchema,
-                  rows_per_point: int, keep_aside: bool,
+                  rows_per_point: int | None, keep_aside: bool,
                   what_to_do: Callable[[str], str]) -> Repaired:
     """Readings and points tables made consistent; the rows of complete points."""
     notes = RepairNotes()
@@ -167,7 +178,8 @@ def repair_tables(folder: Path, readings_schema: TableSchema, points_schema: Tab
     readings = (readings_schema.read(readings_path)
                 if readings_text is not None and (readings_text.rows or readings_text.damaged_at)
                 else pd.DataFrame(columns=list(readings_schema.names)))
-    done, partial = split_complete_points(readings, rows_per_point)
+    held = point_numbers(points_text.rows) if points_text is not None else set()
+    done, partial = split_complete_points(readings, rows_per_point, held)
     if not partial.empty:
         aside_path = folder / PARTIAL_READINGS
         partial.to_csv(aside_path, mode="a", header=not aside_path.exists(), index=False)
@@ -178,7 +190,6 @@ def repair_tables(folder: Path, readings_schema: TableSchema, points_schema: Tab
         notes.add(f"the rows of point(s) {_numbers(set(partial['point']))} cut short are kept "
                   f"in {PARTIAL_READINGS}; measured again")
     done_points = {int(number) for number in done["point"].unique()} if not done.empty else set()
-    held = point_numbers(points_text.rows) if points_text is not None else set()
     unbacked = held - done_points
     if unbacked:
         if not keep_aside:

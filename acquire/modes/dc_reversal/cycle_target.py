@@ -6,8 +6,9 @@ The stopping rule (pure; the measurement asks it before each point):
 
 where s^2 is the variance of one cycle's unidirectional part times I^2 (volts squared, a
 property of the voltmeter and the sample, not of the current), pooled over the most recent
-points of the target channel until it has POOLED_DOF degrees of freedom, and R that channel's
-resistance at the last point. Before the first point, s^2 and R come from the noise budget.
+points of the target channel until it has POOLED_DOF degrees of freedom (the noise budget's
+prediction fills in for what the first points lack), and R that channel's resistance at the
+last point (the sample model's before the first).
 
 N is fixed before the point's first reading and uses no reading of the point itself. A rule
 that stops when the point's own standard error reaches the target stops early exactly when its
@@ -37,8 +38,8 @@ class CycleTarget(Strict):
     """As many cycles at each point as the unidirectional ratio's standard error needs to reach
     `target`. Before each point: N = ceil(s^2 / (I R target)^2) within [min, max], with s^2
     the variance of one cycle's unidirectional part times I^2 pooled over the latest points of
-    `channel` (30 degrees of freedom), R its last resistance; the first point takes both from
-    the noise budget (`estimate`). N uses no reading of the point itself, so the point's mean
+    `channel` (30 degrees of freedom; the noise budget of `estimate` fills in what the first
+    points lack), R its last resistance. N uses no reading of the point itself, so the point's mean
     stays unbiased and its error honest (N - 1 degrees of freedom); points.csv's n_cycles
     says what each point used."""
 
@@ -74,10 +75,11 @@ class CyclePlanner:
                                  self.target.min, self.target.max)
 
     def pooled_variance_V2(self) -> float:
-        if not self.history:
-            return self.prior_variance_V2
+        # Until the points give POOLED_DOF degrees of freedom, the budget fills the rest.
+        dof = sum(dof for _, dof in self.history)
+        missing = max(0, POOLED_DOF - dof)
         total = sum(variance * dof for variance, dof in self.history)
-        return total / sum(dof for _, dof in self.history)
+        return (total + missing * self.prior_variance_V2) / (dof + missing)
 
     def record(self, current_A: float, n_cycles: int, unidirectional_err_ohm: float,
                resistance_ohm: float) -> None:
