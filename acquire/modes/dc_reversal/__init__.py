@@ -15,6 +15,7 @@ import pandas as pd
 from pydantic import Discriminator, Field, Tag, field_validator
 
 from acquire.inputs.protocol import ProtocolBase, Strict
+from acquire.inputs.resistance_check import is_longitudinal
 from acquire.inputs.stack import StackGeometry
 from acquire.modes.base import (
     AcquisitionMode,
@@ -230,6 +231,12 @@ class DcReversal(AcquisitionMode):
                 f"cycles.channel {target.channel!r} is not one of the channels read",
                 ("alternation", "cycles", "channel"),
                 f"use one of {', '.join(channels)}, or leave it out (the first longitudinal)")
+        if target is not None and target.channel is None and not any(
+                is_longitudinal(name, None) for name in channels):
+            raise loaded.document.source.error(
+                "precision-targeted cycles follow a longitudinal channel's ratio, and none of "
+                f"{', '.join(channels)} is one by its name", ("alternation", "cycles"),
+                "name the channel to follow with cycles.channel")
 
     def noise_budget(self, protocol: Any, rig: Any, plans: Sequence[LoopPlan]) -> NoiseBudget:
         return noise_budget(protocol, rig.rig if rig is not None else None, plans,
