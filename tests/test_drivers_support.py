@@ -33,10 +33,12 @@ class OhmicSample:
         self.placements.append((field_T, angle_deg))
 
     def voltage(self, probe: str, current_A: float, temperature_K: float, time_s: float,
-                integration_s: float, autozero: bool = False) -> float:
+                integration_s: float, autozero: bool = False,
+                meter_noise_V_per_rtHz: float | None = None) -> float:
         self.readings.append({"probe": probe, "current_A": current_A,
                               "temperature_K": temperature_K, "time_s": time_s,
-                              "integration_s": integration_s, "autozero": autozero})
+                              "integration_s": integration_s, "autozero": autozero,
+                              "meter_noise_V_per_rtHz": meter_noise_V_per_rtHz})
         return self.offset_V + current_A * self.resistance_ohm
 
     def expected(self, probe: str, current_A: float, temperature_K: float) -> Expected:

@@ -3,6 +3,7 @@
 from __future__ import annotations
 
 import math
+import os
 from pathlib import Path
 
 import numpy as np
@@ -21,6 +22,8 @@ from sim_instruments.sample_parameters import SampleParameters
 
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
+# One seed in the suite; FLIPSWEEP_NOISE_SEEDS=30 runs thirty (each a 40-point night, ~3 s).
+SEEDS = range(3, 3 + int(os.environ.get("FLIPSWEEP_NOISE_SEEDS", "1")))
 
 
 def _counts(pattern: str) -> tuple[int, int, int]:
@@ -94,7 +97,8 @@ loops:
 """
 
 
-def test_predicted_errors_are_the_simulated_rigs(tmp_path: Path) -> None:
+@pytest.mark.parametrize("seed", SEEDS)
+def test_predicted_errors_are_the_simulated_rigs(tmp_path: Path, seed: int) -> None:
     rig = yaml.safe_load(RIG.read_text())
     # One meter with the rig key (and autozero, NPLC 2), the other on the default density.
     rig["instruments"]["vxx"].update({"noise_density": "60 nV/rtHz", "autozero": True,
@@ -104,7 +108,7 @@ def test_predicted_errors_are_the_simulated_rigs(tmp_path: Path) -> None:
     protocol = tmp_path / "protocol.yaml"
     protocol.write_text(PROTOCOL.format(base=ROOT / "protocols" / "base.yaml"))
     out = tmp_path / "run"
-    assert main(["run", str(protocol), "--rig", str(rig_path), "--simulate", "--seed", "3",
+    assert main(["run", str(protocol), "--rig", str(rig_path), "--simulate", "--seed", str(seed),
                  "--out", str(out), "--quiet"]) == 0
     budget = estimate(load_protocol(protocol), load_rig(rig_path)).noise
     assert budget is not None
