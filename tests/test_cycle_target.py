@@ -189,6 +189,9 @@ def test_a_killed_targeted_run_resumes(targeted: Path, tmp_path: Path) -> None:
     process = start(targeted, out)
     wait_for_rows(out, process)
     process.send_signal(signal.SIGKILL)
-    process.wait()
+    if process.wait() == 0:
+        pytest.skip("the run finished before the kill")
+    done_before = len(pd.read_csv(out / "points.csv")) // 2 if (out / "points.csv").exists() else 0
+    assert done_before < 18
     assert main(["resume", str(out), "--quiet"]) == 0
     _assert_whole(out, 18)
