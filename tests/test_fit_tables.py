@@ -130,14 +130,14 @@ def test_angle_fits_need_five_distinct_angles() -> None:
     four = angle_points(np.array([0.0, 90.0, 180.0, 270.0, 0.0, 90.0]), {"cos2": 1.0})
     assert build_fits_table(four, RunContext()).query("analysis == 'angle'").empty
     five = angle_points(np.arange(0.0, 360.0, 72.0), {"cos2": 1.0})
-    assert len(rows(build_fits_table(five, RunContext()), "angle", "amr_ohm")) == 1
+    assert len(rows(build_fits_table(five, RunContext()), "angle", "amr_plus_smr_ohm")) == 1
 
 
 @pytest.mark.parametrize(
     ("plane", "name", "expected"),
     [
         # xy: R = R_perp + dR cos^2 phi = R_perp + dR/2 + dR/2 cos 2phi, so dR = 2*a2 = 1.5
-        ("xy", "amr_ohm", 1.5),
+        ("xy", "amr_plus_smr_ohm", 1.5),
         # zy: cos 2 term 0.75 -> R(theta=0, m||z) - R(theta=90, m||y) = 2*0.75
         ("zy", "smr_ohm", 1.5),
         # zx: R(m||x) - R(m||z) = R(90) - R(0) = -2*a2
@@ -158,9 +158,9 @@ def test_planar_and_anomalous_hall_from_the_transverse_channel() -> None:
     angles = np.arange(0.0, 360.0, 15.0)
     points = angle_points(angles, {"c0": 0.0, "sin2": 0.6, "cos1": 0.2}, channel="vxy")
     xy = build_fits_table(points, RunContext(rotation_plane="xy"))
-    # R_xy = (dR/2) sin 2phi: a sin 2 term of 0.6 is a planar Hall dR of 1.2
-    assert rows(xy, "angle", "planar_hall_ohm")["value"].iloc[0] == pytest.approx(1.2)
-    assert rows(xy, "angle", "amr_ohm").empty  # not a longitudinal channel
+    # R_xy = R_PHE sin 2phi_M: a sin 2 term of 0.6 is R_PHE = 0.6
+    assert rows(xy, "angle", "planar_hall_ohm")["value"].iloc[0] == pytest.approx(0.6)
+    assert rows(xy, "angle", "amr_plus_smr_ohm").empty  # not a longitudinal channel
     zx = build_fits_table(points, RunContext(rotation_plane="zx"))
     assert rows(zx, "angle", "anomalous_hall_ohm")["value"].iloc[0] == pytest.approx(0.2)
 
@@ -180,7 +180,8 @@ def test_angle_offset_is_read_from_the_second_harmonic_and_can_be_removed() -> N
     corrected = build_fits_table(points, RunContext(), FitOptions(angle_offset=True))
     applied = rows(corrected, "angle", "angle_offset_applied_deg")
     assert applied["value"].iloc[0] == pytest.approx(offset)
-    assert rows(corrected, "angle", "amr_ohm")["value"].iloc[0] == pytest.approx(2 * amplitude)
+    corrected_mr = rows(corrected, "angle", "amr_plus_smr_ohm")["value"].iloc[0]
+    assert corrected_mr == pytest.approx(2 * amplitude)
 
 
 # --- current ---------------------------------------------------------------------------------

@@ -246,10 +246,12 @@ def test_fit_run_recovers_the_sample_within_errors(tmp_path: Path) -> None:
     # Without the offset option the fit reports the cos 2phi projection: a cos 2(phi - phi0)
     # term has cos 2phi coefficient a*cos(2 phi0) (angle-difference identity).
     projection = math.cos(math.radians(2 * sample.offset_deg))
-    amr = rows("angle", "amr_ohm")
+    amr = rows("angle", "amr_plus_smr_ohm")
     assert np.all(np.abs(amr["value"] - sample.amr * projection) < 4 * amr["error"])
     hall = rows("angle", "planar_hall_ohm")
-    assert np.all(np.abs(hall["value"] - sample.planar_hall * projection) < 4 * hall["error"])
+    # R_xy = R_PHE sin 2phi_M: the generator's 0.5 * planar_hall is R_PHE
+    expected_hall = 0.5 * sample.planar_hall * projection
+    assert np.all(np.abs(hall["value"] - expected_hall) < 4 * hall["error"])
     offset = rows("angle", "angle_offset_deg")
     assert np.all(np.abs(offset["value"] - sample.offset_deg) < 4 * offset["error"])
 

@@ -1,34 +1,49 @@
-"""Harmonic fits of angle sweeps, their named amplitudes per rotation plane, mounting offset.
+"""Angle sweeps fitted on the magnetisation angle, their named amplitudes per plane, offset.
 
-Angle conventions (the field saturates the magnetisation m, so m follows the field):
-xy: phi in the film plane from the current direction x towards y; zy: theta from the film
-normal z towards y; zx: theta from z towards x.
+Angle conventions (docs/conventions.md): xy: phi in the film plane from the current
+direction x towards y; zy: theta from the film normal z towards y; zx: theta from z towards
+x. Below saturation m lags the field: every sweep is fitted against the magnetisation angle
+of the thin-film equilibrium (fit_magnetisation.py), with the plane's anisotropy field fitted
+from the sweep itself or given (FitOptions.anisotropy_T). angle_conventions.py says which
+coefficient is which named amplitude in each plane.
 """
 
 from __future__ import annotations
 
 import math
 from dataclasses import dataclass
-from typing import Any
 
 import numpy as np
 import pandas as pd
 from numpy.typing import NDArray
 
+from acquire.analysis.angle_conventions import ANISOTROPY_QUANTITY
+from acquire.analysis.angle_named import named_amplitudes
 from acquire.analysis.fit_context import RunContext
 from acquire.analysis.fit_groups import distinct_per_group, group_ids, group_mean, keep_groups
-from acquire.analysis.fit_rows import coefficient_rows, empty_fits_table, tidy_rows
+from acquire.analysis.fit_magnetisation import MagnetisationFit, fit_on_magnetisation
+from acquire.analysis.fit_rows import (
+    coefficient_rows,
+    empty_fits_table,
+    fit_note,
+    join_notes,
+    tidy_rows,
+)
 from acquire.analysis.fits import (
     HARMONIC_TERMS,
     GroupedLinearFit,
-    fit_harmonics_by_group,
-    ratio_with_error,
+    fit_linear_by_group,
+    harmonic_design,
     second_harmonic_offset_deg,
 )
 
 MIN_ANGLES: int = 5  # five harmonic coefficients
 ANGLE_KEYS: tuple[str, ...] = ("temperature_K", "field_T", "current_A", "channel")
-HARMONIC_MODEL: str = "c0 + a1 cos(phi) + b1 sin(phi) + a2 cos(2phi) + b2 sin(2phi)"
+
+
+def harmonic_model(name: str) -> str:
+    return (f"c0 + a1 cos({name}) + b1 sin({name}) + a2 cos(2{name}) + b2 sin(2{name}), "
+            f"{name} the magnetisation angle")
 
 
 @dataclass(frozen=True)
@@ -37,8 +52,13 @@ class AngleResult:
     amplitudes: pd.DataFrame  # one row per angle group: keys + named amplitudes and errors
 
 
-def angle_fits(points: pd.DataFrame, context: RunContext, apply_offset: bool) -> AngleResult:
-    """Harmonic fits of resistance and unidirectional part per (T, field, current, channel)."""
+def angle_fits(
+    points: pd.DataFrame,
+    context: RunContext,
+    apply_offset: bool,
+    anisotropy_T: float | None = None,
+) -> AngleResult:
+    """Fits of resistance and unidirectional part per (T, field, current, channel) sweep."""
     swept = points[np.isfinite(points["angle_deg"].to_numpy())]
     ids, keys = group_ids(swept, ANGLE_KEYS)
     angle = swept["angle_deg"].to_numpy(float)
@@ -47,86 +67,139 @@ def angle_fits(points: pd.DataFrame, context: RunContext, apply_offset: bool) ->
     if keys.empty:
         return AngleResult(empty_fits_table(), pd.DataFrame(columns=[*ANGLE_KEYS]))
 
+    plane = context.rotation_plane
     kinds = np.array([context.channel_kind(str(name)) for name in keys["channel"]])
     longitudinal = kinds == "longitudinal"
-    resistance = _fit_quantity(swept, ids, len(keys), angle, "resistance_ohm")
-    offset, offset_err = _mounting_offsets(resistance, longitudinal, context.rotation_plane)
+    field = swept["field_T"].to_numpy(float)
+    order = swept["point"].to_numpy(float) if "point" in swept else np.arange(len(swept), 0.0)
 
+    def fit_resistance(angles: NDArray[np.float64]) -> MagnetisationFit:
+        values, errors = _pooled(swept, "resistance_ohm", ids, len(keys))
+        return fit_on_magnetisation(
+            angles, field, values, errors, ids, len(keys), plane, order, anisotropy_T
+        )
+
+    resistance = fit_resistance(angle)
+    offset, offset_err = _mounting_offsets(resistance.fit, longitudinal, plane)
     frames: list[pd.DataFrame] = []
     applied = 0.0
     if apply_offset:
         applied, applied_err, note = _run_offset(offset, offset_err, longitudinal)
         frames.append(
-            tidy_rows(
-                pd.DataFrame(index=range(1)),
-                "angle",
-                "angle_offset_applied_deg",
-                applied,
-                applied_err,
-                "deg",
-                np.nan,
-                int(np.isfinite(offset).sum()),
-                "weighted mean of the groups' angle_offset_deg",
-                note,
-            )
+            tidy_rows(pd.DataFrame(index=range(1)), "angle", "angle_offset_applied_deg",
+                      applied, applied_err, "deg", np.nan, int(np.isfinite(offset).sum()),
+                      "weighted mean of the groups' angle_offset_deg", note)
         )
-        resistance = _fit_quantity(swept, ids, len(keys), angle - applied, "resistance_ohm")
-    unidirectional = _fit_quantity(swept, ids, len(keys), angle - applied, "unidirectional_ohm")
+        resistance = fit_resistance(angle - applied)
+    unidirectional = _fit_unidirectional(swept, ids, len(keys), resistance)
 
-    angle_name = "phi" if context.rotation_plane == "xy" else "theta"
-    model = HARMONIC_MODEL.replace("phi", angle_name)
-    for label, fit in (("resistance", resistance), ("unidirectional", unidirectional)):
+    name = "phi_M" if plane == "xy" else "theta_M"
+    model = harmonic_model(name)
+    group_notes = _group_notes(resistance, keys, plane, anisotropy_T, ids)
+    for label, fit in (("resistance", resistance.fit), ("unidirectional", unidirectional)):
         for index, term in enumerate(HARMONIC_TERMS):
-            frames.append(
-                coefficient_rows(keys, "angle", f"{label}_{term}", fit, index, "ohm", model)
-            )
-    offset_note = "from raw angles; +-90 deg ambiguity folded into (-45, 45]"
+            notes = [join_notes(a, b) for a, b in zip(fit_note(fit), group_notes)]
+            frames.append(coefficient_rows(keys, "angle", f"{label}_{term}", fit, index, "ohm",
+                                           model, np.array(notes, dtype=object)))
+    frames.append(_anisotropy_rows(keys, resistance, plane, anisotropy_T, group_notes))
     has_offset = np.isfinite(offset)
     frames.append(
-        tidy_rows(
-            keys[has_offset],
-            "angle",
-            "angle_offset_deg",
-            offset[has_offset],
-            offset_err[has_offset],
-            "deg",
-            resistance.reduced_chi2[has_offset],
-            resistance.n_points[has_offset],
-            "a2 cos 2phi + b2 sin 2phi = A cos 2(phi - phi0)",
-            offset_note,
-        )
+        tidy_rows(keys[has_offset], "angle", "angle_offset_deg", offset[has_offset],
+                  offset_err[has_offset], "deg", resistance.fit.reduced_chi2[has_offset],
+                  resistance.fit.n_points[has_offset],
+                  "a2 cos 2M + b2 sin 2M = A cos 2(M - M0)",
+                  "+-90 deg ambiguity folded into (-45, 45]")
     )
-    named, amplitudes = _named_amplitudes(keys, kinds, resistance, unidirectional, context)
+    named, amplitudes = named_amplitudes(keys, kinds, resistance.fit, unidirectional, plane,
+                                         group_notes)
     amplitudes["current_density_A_m2"] = group_mean(
         ids, swept["current_density_A_m2"].to_numpy(float), len(keys)
     )
+    amplitudes["anisotropy_T"] = resistance.anisotropy_T
     frames.extend(named)
     rows = pd.concat([frame for frame in frames if not frame.empty], ignore_index=True)
     return AngleResult(rows, amplitudes)
 
 
-def _fit_quantity(
-    frame: pd.DataFrame,
-    ids: NDArray[np.int64],
-    n_groups: int,
-    angle: NDArray[np.float64],
-    column: str,
+def _pooled(
+    frame: pd.DataFrame, column: str, ids: NDArray[np.int64], n_groups: int
+) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
+    """Values and the group's RMS error for every row: one sweep shares current, channel,
+    temperature and field, hence one noise level, and a standard error over a few cycles
+    is a poor estimate of it point by point."""
+    values = frame[column].to_numpy(float)
+    errors = frame[f"{column}_err"].to_numpy(float)
+    member = (ids >= 0) & np.isfinite(errors) & (errors > 0)
+    total = np.bincount(ids[member], weights=errors[member] ** 2, minlength=n_groups)
+    count = np.bincount(ids[member], minlength=n_groups)
+    all_count = np.bincount(ids[ids >= 0], minlength=n_groups)
+    with np.errstate(divide="ignore", invalid="ignore"):
+        rms = np.where((count == all_count) & (count > 0), np.sqrt(total / count), np.nan)
+    return values, np.where(ids >= 0, rms[np.clip(ids, 0, None)], np.nan)
+
+
+def _fit_unidirectional(
+    frame: pd.DataFrame, ids: NDArray[np.int64], n_groups: int, resistance: MagnetisationFit
 ) -> GroupedLinearFit:
-    # One sweep shares current, channel, temperature and field, hence one noise level.
-    return fit_harmonics_by_group(
-        angle,
-        frame[column].to_numpy(float),
-        frame[f"{column}_err"].to_numpy(float),
-        ids,
-        n_groups,
-        pool_errors=True,
+    # The same magnetisation angles and exclusions as the sweep's resistance fit.
+    values, errors = _pooled(frame, "unidirectional_ohm", ids, n_groups)
+    used = np.where(resistance.excluded, -1, ids)
+    return fit_linear_by_group(harmonic_design(resistance.alpha_deg), values, errors, used,
+                               n_groups)
+
+
+def _group_notes(
+    resistance: MagnetisationFit,
+    keys: pd.DataFrame,
+    plane: str,
+    given: float | None,
+    ids: NDArray[np.int64],
+) -> NDArray[np.object_]:
+    excluded = np.bincount(ids[(ids >= 0) & resistance.excluded], minlength=len(keys))
+    field = np.abs(keys["field_T"].to_numpy(float))
+    ba = resistance.anisotropy_T
+    notes = []
+    for group in range(len(keys)):
+        if given is not None:
+            source = "given"
+        elif resistance.determined[group]:
+            source = "fitted"
+        else:
+            source = "WARNING: not determined by the sweep, held at the grid's best"
+        quantity = ANISOTROPY_QUANTITY[plane]
+        parts = [f"on the magnetisation angle, {quantity} {ba[group]:.4g} T {source}"]
+        if excluded[group]:
+            parts.append(f"{excluded[group]} point(s) left out (two minima)")
+        if np.isfinite(field[group]) and field[group] <= abs(ba[group]):
+            parts.append(
+                f"WARNING: |B| = {field[group]:.3g} T is below the anisotropy field "
+                f"{abs(ba[group]):.3g} T: m does not follow the field, the amplitudes rest "
+                "on the thin-film model"
+            )
+        notes.append(join_notes(*parts))
+    return np.array(notes, dtype=object)
+
+
+def _anisotropy_rows(
+    keys: pd.DataFrame,
+    resistance: MagnetisationFit,
+    plane: str,
+    given: float | None,
+    notes: NDArray[np.object_],
+) -> pd.DataFrame:
+    model = (
+        "e = -(B_k/2) cos^2 phi_M - B cos(phi_M - phi)" if plane == "xy"
+        else "e = (B_eff/2) cos^2 theta_M - B cos(theta_M - theta)"
     )
+    return tidy_rows(keys, "angle", ANISOTROPY_QUANTITY[plane], resistance.anisotropy_T,
+                     resistance.anisotropy_err_T, "T", resistance.fit.reduced_chi2,
+                     resistance.fit.n_points, model, notes)
 
 
 def _mounting_offsets(
     resistance: GroupedLinearFit, longitudinal: NDArray[np.bool_], plane: str
 ) -> tuple[NDArray[np.float64], NDArray[np.float64]]:
-    """Offset from the 2phi phase: of R_xx in every plane, of the planar Hall R_xy in xy."""
+    """Offset from the 2M phase: of R_xx in every plane, of the planar Hall R_xy in xy."""
     cov = resistance.covariance
     cos2, sin2 = resistance.coefficients[:, 3], resistance.coefficients[:, 4]
     from_longitudinal = second_harmonic_offset_deg(
@@ -136,14 +209,13 @@ def _mounting_offsets(
         cos2, sin2, cov[:, 3, 3], cov[:, 4, 4], cov[:, 3, 4], reference_deg=45.0
     )
     usable_hall = ~longitudinal & (plane == "xy")
-    from_longitudinal = (from_longitudinal[0], from_longitudinal[1] * resistance.birge_factor)
-    from_hall = (from_hall[0], from_hall[1] * resistance.birge_factor)
+    factor = resistance.birge_factor
     offset = np.where(
         longitudinal, from_longitudinal[0], np.where(usable_hall, from_hall[0], np.nan)
     )
     error = np.where(
         longitudinal, from_longitudinal[1], np.where(usable_hall, from_hall[1], np.nan)
-    )
+    ) * factor
     return offset, error
 
 
@@ -161,95 +233,3 @@ def _run_offset(
     spread = float(np.std(offset[chosen]))
     note = f"applied to all angle fits; spread over {int(chosen.sum())} groups {spread:.3g} deg"
     return mean, float(1.0 / math.sqrt(weight.sum())), note
-
-
-def _named_amplitudes(
-    keys: pd.DataFrame,
-    kinds: NDArray[np.str_],
-    resistance: GroupedLinearFit,
-    unidirectional: GroupedLinearFit,
-    context: RunContext,
-) -> tuple[list[pd.DataFrame], pd.DataFrame]:
-    plane = context.rotation_plane
-    c0, c0_err = resistance.coefficients[:, 0], resistance.scaled_errors[:, 0]
-    longitudinal = kinds == "longitudinal"
-    frames: list[pd.DataFrame] = []
-    amplitudes = keys.copy()
-    amplitudes["kind"] = kinds
-    amplitudes["resistance_c0"] = c0
-    amplitudes["resistance_c0_err"] = c0_err
-
-    def add(
-        mask: NDArray[np.bool_],
-        quantity: str,
-        value: Any,
-        error: Any,
-        unit: str,
-        fit: GroupedLinearFit,
-        model: str,
-        note: str = "",
-    ) -> None:
-        value = np.asarray(value, dtype=float)
-        error = np.asarray(error, dtype=float)
-        frames.append(
-            tidy_rows(
-                keys[mask],
-                "angle",
-                quantity,
-                value[mask],
-                error[mask],
-                unit,
-                fit.reduced_chi2[mask],
-                fit.n_points[mask],
-                model,
-                note,
-            )
-        )
-        amplitudes[quantity] = np.where(mask, value, np.nan)
-        amplitudes[f"{quantity}_err"] = np.where(mask, error, np.nan)
-
-    cos1, sin1 = 1, 2
-    cos2, sin2 = 3, 4
-    r_coef, r_err = resistance.coefficients, resistance.scaled_errors
-    if plane == "zy":
-        mr_name, mr_sign, mr_model = "smr", 2.0, "smr_ohm = 2*a2 = R(m||z) - R(m||y)"
-    elif plane == "zx":
-        mr_name, mr_sign, mr_model = "amr", -2.0, "amr_ohm = -2*a2 = R(m||x) - R(m||z)"
-    else:
-        mr_name, mr_sign, mr_model = "amr", 2.0, "amr_ohm = 2*a2 = R(m||x) - R(m||y)"
-    mr = mr_sign * r_coef[:, cos2]
-    mr_err = abs(mr_sign) * r_err[:, cos2]
-    add(longitudinal, f"{mr_name}_ohm", mr, mr_err, "ohm", resistance, mr_model)
-    mr_ratio = ratio_with_error(mr, mr_err, c0, c0_err)
-    add(longitudinal, f"{mr_name}_ratio", *mr_ratio, "1", resistance, f"{mr_name}_ohm / c0")
-
-    umr, umr_err = unidirectional.coefficients[:, sin1], unidirectional.scaled_errors[:, sin1]
-    umr_note = "expected ~0: m_y = 0 in the zx plane" if plane == "zx" else ""
-    umr_model = "umr_ohm = b1 of unidirectional_ohm (m_y part)"
-    add(longitudinal, "umr_ohm", umr, umr_err, "ohm", unidirectional, umr_model, umr_note)
-    umr_ratio = ratio_with_error(umr, umr_err, c0, c0_err)
-    add(longitudinal, "umr_ratio", *umr_ratio, "1", unidirectional, "umr_ohm / c0", umr_note)
-
-    transverse = ~longitudinal
-    if plane == "xy":
-        hall, hall_err = 2.0 * r_coef[:, sin2], 2.0 * r_err[:, sin2]
-        add(
-            transverse,
-            "planar_hall_ohm",
-            hall,
-            hall_err,
-            "ohm",
-            resistance,
-            "R_xy = planar_hall_ohm/2 * sin 2phi (2*b2)",
-        )
-    else:
-        add(
-            transverse,
-            "anomalous_hall_ohm",
-            r_coef[:, cos1],
-            r_err[:, cos1],
-            "ohm",
-            resistance,
-            "R_xy = anomalous_hall_ohm * cos(theta) (a1; m_z part)",
-        )
-    return frames, amplitudes

@@ -47,6 +47,9 @@ class RunContext:
 class FitOptions:
     angle_offset: bool = False
     field_form: str = "inverse"
+    # The plane's anisotropy field in tesla (B_k in xy, B_eff in zx/zy), held fixed in the
+    # angle fits; None: fitted from each sweep.
+    anisotropy_T: float | None = None
     dR_dT_ohm_per_K: float | None = None
     heating_warn_K: float = 5.0
 

@@ -27,6 +27,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 
+from acquire.analysis.angle_conventions import CONVENTION_NOTES
 from acquire.analysis.fit_angle import angle_fits
 from acquire.analysis.fit_context import (
     FitOptions,
@@ -59,15 +60,10 @@ __all__ = [
 ]
 
 QUANTITY_NOTES: dict[str, str] = {
-    "resistance_<term>": "harmonic coefficient of resistance_ohm, term c0, cos1, sin1, cos2, sin2",
+    "resistance_<term>": "harmonic coefficient of resistance_ohm in the magnetisation angle, "
+    "term c0, cos1, sin1, cos2, sin2",
     "unidirectional_<term>": "harmonic coefficient of unidirectional_ohm",
-    "amr_ohm": "anisotropic MR, R(m along the current x) - R(m across it) (xy: 2*a2; zx: -2*a2)",
-    "smr_ohm": "spin Hall MR in zy, R(m along z) - R(m along y) (2*a2)",
-    "amr_ratio, smr_ratio": "amr_ohm or smr_ohm over the mean resistance c0",
-    "planar_hall_ohm": "planar Hall, R_xy = planar_hall_ohm/2 * sin 2phi (2*b2)",
-    "anomalous_hall_ohm": "anomalous Hall in zx/zy, the cos(theta) term a1 of the transverse R",
-    "umr_ohm": "unidirectional MR amplitude, the sin term b1 of unidirectional_ohm (m_y part)",
-    "umr_ratio": "umr_ohm over the mean resistance c0",
+    **CONVENTION_NOTES,
     "angle_offset_deg": "sample mounting offset from the 2phi phase, folded into (-45, 45] deg",
     "angle_offset_applied_deg": "run-wide offset subtracted from the angles before fitting",
     "umr_slope_ohm": "unidirectional_ohm = k*j, k per 1e11 A/m^2 (per mA without a density)",
@@ -103,7 +99,7 @@ def build_fits_table(
     """Every analysis the data support, as one tidy table (columns FIT_COLUMN_NAMES)."""
     options = options or FitOptions()
     points = normalise_points(points)
-    angle = angle_fits(points, context, options.angle_offset)
+    angle = angle_fits(points, context, options.angle_offset, options.anisotropy_T)
     source = analysis_source(points, angle.amplitudes, context)
     temperature = temperature_fits(angle.rows, source, context)
     frames = [

@@ -20,10 +20,13 @@ from acquire.analysis.fit_tables import RunContext
 SUMMARY_QUANTITIES: tuple[tuple[str, str, str, float, str], ...] = (
     ("angle", "umr_ratio", "UMR amplitude / R", 1e6, "ppm"),
     ("angle", "umr_ohm", "UMR amplitude", 1e3, "mΩ"),
+    ("angle", "amr_plus_smr_ratio", "(AMR + SMR) ratio, in-plane", 1e2, "%"),
     ("angle", "amr_ratio", "AMR ratio", 1e2, "%"),
     ("angle", "smr_ratio", "SMR ratio", 1e2, "%"),
     ("angle", "planar_hall_ohm", "planar Hall", 1.0, "Ω"),
     ("angle", "anomalous_hall_ohm", "anomalous Hall", 1.0, "Ω"),
+    ("angle", "anisotropy_field_T", "in-plane anisotropy field B_k", 1e3, "mT"),
+    ("angle", "effective_demag_field_T", "effective demagnetising field B_eff", 1.0, "T"),
     ("angle", "angle_offset_applied_deg", "mounting offset applied", 1.0, "deg"),
     ("current", "umr_ratio_per_1e11_A_m2", "UMR / R per 10¹¹ A/m²", 1e6, "ppm"),
     ("current", "umr_ratio_per_mA", "UMR / R per mA", 1e6, "ppm"),

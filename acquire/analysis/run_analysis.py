@@ -39,6 +39,7 @@ def fit_run(
     field_form: str = "inverse",
     dR_dT_ohm_per_K: float | None = None,
     heating_warn_K: float = 5.0,
+    anisotropy_T: float | None = None,
 ) -> Path:
     """Fit the run's points; write run_dir/fits.csv and its CSVW metadata; return fits.csv.
 
@@ -46,6 +47,8 @@ def fit_run(
     angle sweeps with phi - offset. field_form: "inverse" or "linear" (see FIELD_FORMS).
     dR_dT_ohm_per_K: the sample's dR/dT for the heating estimate, when the run has no
     temperature series of its own. heating_warn_K: a temperature rise above this is flagged.
+    anisotropy_T: the rotation plane's anisotropy field held fixed in the angle fits (B_k in
+    xy, B_eff in zx/zy); None fits it from each sweep.
     """
     run_dir = Path(run_dir)
     if field_form not in FIELD_FORMS:
@@ -58,6 +61,7 @@ def fit_run(
         field_form=field_form,
         dR_dT_ohm_per_K=dR_dT_ohm_per_K,
         heating_warn_K=heating_warn_K,
+        anisotropy_T=anisotropy_T,
     )
     table = build_fits_table(read_points(points_path), read_run_context(run_dir), options)
     target = run_dir / "fits.csv"

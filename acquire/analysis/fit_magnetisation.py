@@ -1,0 +1,222 @@
+"""Harmonic fits in the magnetisation angle, with the film's anisotropy fitted from the data.
+
+Each sweep (one group) is fitted with
+
+    R = c0 + a1 cos(alpha) + b1 sin(alpha) + a2 cos(2 alpha) + b2 sin(2 alpha)
+
+where alpha is the magnetisation angle of the thin-film equilibrium (thin_film.py) at the
+field angle, the field and the plane's anisotropy field B_a. The model is linear in the five
+coefficients and non-linear in B_a: B_a starts from the best value on a grid (relative to the
+field) and is refined by Gauss-Newton steps on the joint design [harmonics, dR/dB_a], all
+groups at once. The last step's covariance gives the coefficients' errors with B_a's
+uncertainty included. A B_a given by the user is held fixed.
+
+Points left out (`excluded`): where the film has two minima and which one it sits in is not
+the one nearest the field (m held on the far side of a hard axis, waiting to switch), or a
+field along the hard axis itself (two symmetric minima). When and where a real film switches
+there depends on details a single-domain model does not get right.
+"""
+
+from __future__ import annotations
+
+from dataclasses import dataclass
+
+import numpy as np
+from numpy.typing import NDArray
+
+from acquire.analysis.fits import GroupedLinearFit, fit_linear_by_group, harmonic_design
+from acquire.analysis.thin_film import equilibrium_angle_deg, follow_sweeps
+
+FloatArray = NDArray[np.float64]
+
+# B_a / |B| tried for the start (both signs: an easy axis across the current in xy, a
+# perpendicular easy axis out of plane).
+_START_RATIOS = np.geomspace(0.002, 4.0, 156)  # steps of 5 %
+_GAUSS_NEWTON_STEPS = 12
+_AMBIGUOUS_DEG = 1.0
+
+
+@dataclass(frozen=True)
+class MagnetisationFit:
+    fit: GroupedLinearFit  # five harmonic coefficients in alpha (HARMONIC_TERMS order)
+    anisotropy_T: FloatArray  # per group: B_a used
+    anisotropy_err_T: FloatArray  # NaN where given or not determined
+    alpha_deg: FloatArray  # per row: the magnetisation angle at the final B_a
+    excluded: NDArray[np.bool_]  # per row: left out (see the module docstring)
+    determined: NDArray[np.bool_]  # per group: B_a determined by the data
+
+
+def magnetisation_angles(
+    angle_deg: FloatArray,
+    field_T: FloatArray,
+    anisotropy_T: FloatArray,
+    plane: str,
+    sweep: NDArray[np.int64],
+    order: FloatArray,
+) -> tuple[FloatArray, NDArray[np.bool_]]:
+    """Angle of the minimum nearest the field per row, and which rows are ambiguous."""
+    nearest = equilibrium_angle_deg(angle_deg, field_T, anisotropy_T, plane)
+    followed = follow_sweeps(angle_deg, field_T, anisotropy_T, plane, sweep, order)
+    plus = equilibrium_angle_deg(angle_deg, field_T, anisotropy_T, plane, angle_deg + 0.5)
+    minus = equilibrium_angle_deg(angle_deg, field_T, anisotropy_T, plane, angle_deg - 0.5)
+
+    def differ(a: FloatArray, b: FloatArray) -> NDArray[np.bool_]:
+        return np.abs((a - b + 180.0) % 360.0 - 180.0) > _AMBIGUOUS_DEG
+
+    return nearest, differ(nearest, followed) | differ(plus, minus)
+
+
+def fit_on_magnetisation(
+    angle_deg: FloatArray,
+    field_T: FloatArray,
+    values: FloatArray,
+    errors: FloatArray,
+    ids: NDArray[np.int64],
+    n_groups: int,
+    plane: str,
+    order: FloatArray,
+    given_anisotropy_T: float | None = None,
+) -> MagnetisationFit:
+    field_of_group = _group_field(ids, field_T, n_groups)
+    if given_anisotropy_T is not None:
+        anisotropy = np.full(n_groups, float(given_anisotropy_T))
+        fit, alpha, excluded = _linear_at(
+            anisotropy, angle_deg, field_T, values, errors, ids, n_groups, plane, order
+        )
+        return MagnetisationFit(
+            fit, anisotropy, np.full(n_groups, np.nan), alpha, excluded, np.zeros(n_groups, bool)
+        )
+    anisotropy = _grid_start(angle_deg, field_T, values, errors, ids, n_groups, plane)
+    anisotropy_err = np.full(n_groups, np.nan)
+    determined = np.zeros(n_groups, bool)
+    joint: GroupedLinearFit | None = None
+    for _ in range(_GAUSS_NEWTON_STEPS):
+        joint, step = _gauss_newton(
+            anisotropy, angle_deg, field_T, values, errors, ids, n_groups, plane, order
+        )
+        determined = np.isfinite(step)
+        limit = 0.5 * np.abs(anisotropy) + 0.2 * field_of_group
+        anisotropy = np.where(determined, anisotropy + np.clip(step, -limit, limit), anisotropy)
+        anisotropy_err = np.sqrt(joint.covariance[:, 5, 5])
+        if np.all(~determined | (np.abs(step) < 1e-3 * np.nan_to_num(anisotropy_err, nan=1.0))):
+            break
+    fit, alpha, excluded = _linear_at(
+        anisotropy, angle_deg, field_T, values, errors, ids, n_groups, plane, order
+    )
+    assert joint is not None
+    joint, _ = _gauss_newton(
+        anisotropy, angle_deg, field_T, values, errors, ids, n_groups, plane, order
+    )
+    determined = np.isfinite(joint.coefficients[:, 5])
+    # Where the data determine B_a, the joint fit's covariance carries its uncertainty into
+    # the coefficients; elsewhere the harmonic fit at the held B_a stands.
+    chosen = GroupedLinearFit(
+        np.where(determined[:, None], joint.coefficients[:, :5], fit.coefficients),
+        np.where(determined[:, None, None], joint.covariance[:, :5, :5], fit.covariance),
+        np.where(determined, joint.reduced_chi2, fit.reduced_chi2),
+        fit.n_points,
+        fit.weighted,
+    )
+    anisotropy_err = np.where(determined, np.sqrt(joint.covariance[:, 5, 5]), np.nan)
+    return MagnetisationFit(chosen, anisotropy, anisotropy_err, alpha, excluded, determined)
+
+
+def _group_field(ids: NDArray[np.int64], field_T: FloatArray, n_groups: int) -> FloatArray:
+    member = ids >= 0
+    total = np.bincount(ids[member], weights=np.abs(field_T[member]), minlength=n_groups)
+    count = np.bincount(ids[member], minlength=n_groups)
+    return total / np.maximum(count, 1)
+
+
+def _rows_anisotropy(anisotropy: FloatArray, ids: NDArray[np.int64]) -> FloatArray:
+    return np.where(ids >= 0, anisotropy[np.clip(ids, 0, None)], np.nan)
+
+
+def _linear_at(
+    anisotropy: FloatArray,
+    angle_deg: FloatArray,
+    field_T: FloatArray,
+    values: FloatArray,
+    errors: FloatArray,
+    ids: NDArray[np.int64],
+    n_groups: int,
+    plane: str,
+    order: FloatArray,
+) -> tuple[GroupedLinearFit, FloatArray, NDArray[np.bool_]]:
+    row_anisotropy = np.nan_to_num(_rows_anisotropy(anisotropy, ids))
+    alpha, excluded = magnetisation_angles(angle_deg, field_T, row_anisotropy, plane, ids, order)
+    used = np.where(excluded, -1, ids)
+    fit = fit_linear_by_group(harmonic_design(alpha), values, errors, used, n_groups)
+    return fit, alpha, excluded
+
+
+def _gauss_newton(
+    anisotropy: FloatArray,
+    angle_deg: FloatArray,
+    field_T: FloatArray,
+    values: FloatArray,
+    errors: FloatArray,
+    ids: NDArray[np.int64],
+    n_groups: int,
+    plane: str,
+    order: FloatArray,
+) -> tuple[GroupedLinearFit, FloatArray]:
+    """One step: the joint fit of [harmonics, dR/dB_a] and its B_a step (NaN: undetermined)."""
+    fit, alpha, excluded = _linear_at(
+        anisotropy, angle_deg, field_T, values, errors, ids, n_groups, plane, order
+    )
+    delta = 1e-4 * (np.abs(anisotropy) + _group_field(ids, field_T, n_groups))
+    row_delta = np.nan_to_num(_rows_anisotropy(delta, ids))
+    row_anisotropy = np.nan_to_num(_rows_anisotropy(anisotropy, ids))
+    shifted = equilibrium_angle_deg(angle_deg, field_T, row_anisotropy + row_delta, plane)
+    coefficients = np.nan_to_num(fit.coefficients[np.clip(ids, 0, None)])
+    derivative = np.einsum(
+        "ni,ni->n", harmonic_design(shifted) - harmonic_design(alpha), coefficients
+    ) / np.where(row_delta > 0, row_delta, 1.0)
+    design = np.column_stack([harmonic_design(alpha), derivative])
+    used = np.where(excluded, -1, ids)
+    joint = fit_linear_by_group(design, values, errors, used, n_groups)
+    return joint, joint.coefficients[:, 5]
+
+
+def _grid_start(
+    angle_deg: FloatArray,
+    field_T: FloatArray,
+    values: FloatArray,
+    errors: FloatArray,
+    ids: NDArray[np.int64],
+    n_groups: int,
+    plane: str,
+) -> FloatArray:
+    """Per group, the B_a on a grid (5 % steps of B_a/|B|, both signs) with the smallest
+    chi^2 over all its points. The steps are fine because a sweep with a large signal has a
+    narrow valley in B_a; the minimum nearest the field is used (no history), in chunks of
+    candidates so the memory stays bounded."""
+    field = _group_field(ids, field_T, n_groups)
+    ratios = np.concatenate([[0.0], _START_RATIOS, -_START_RATIOS])
+    sigma = np.where(np.isfinite(errors) & (errors > 0), errors, np.nan)
+    member = (ids >= 0) & np.isfinite(values) & np.isfinite(sigma)
+    rows = np.flatnonzero(member)
+    best = np.zeros(n_groups)
+    best_chi2 = np.full(n_groups, np.inf)
+    chunk = max(1, 200_000 // max(rows.size, 1))
+    for first in range(0, ratios.size, chunk):
+        trial = ratios[first : first + chunk]
+        n_trials = trial.size
+        trial_ids = (ids[rows][None, :] + n_groups * np.arange(n_trials)[:, None]).ravel()
+        row_anisotropy = (trial[:, None] * field[ids[rows]][None, :]).ravel()
+        alpha = equilibrium_angle_deg(np.tile(angle_deg[rows], n_trials),
+                                      np.tile(field_T[rows], n_trials), row_anisotropy, plane)
+        y, e = np.tile(values[rows], n_trials), np.tile(sigma[rows], n_trials)
+        design = harmonic_design(alpha)
+        fit = fit_linear_by_group(design, y, e, trial_ids, n_groups * n_trials)
+        residual = y - np.einsum("ni,ni->n", design, np.nan_to_num(fit.coefficients[trial_ids]))
+        chi2 = np.bincount(trial_ids, weights=(residual / e) ** 2, minlength=n_groups * n_trials)
+        chi2 = np.where(np.isfinite(fit.coefficients[:, 0]), chi2, np.inf)
+        chi2 = chi2.reshape(n_trials, n_groups)
+        index = np.argmin(chi2, axis=0)
+        found = chi2[index, np.arange(n_groups)]
+        better = found < best_chi2
+        best = np.where(better, trial[index] * field, best)
+        best_chi2 = np.where(better, found, best_chi2)
+    return best
