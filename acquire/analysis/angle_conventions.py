@@ -89,6 +89,11 @@ CONVENTION_NOTES: dict[str, str] = {
     "R(+I) - R(-I) at m = +y is 2*umr_ohm",
     "umr_ratio": "umr_ohm over the mean resistance c0",
     "transverse_odd_mx_ohm": "xy transverse: m_x-odd part of (R(+I) - R(-I))/2 (a1)",
+    "umr_thermal_ohm": "xy: thermal (anomalous-Nernst-like) part of umr_ohm, -(L/w) times "
+    "the transverse m_x-odd part; assumes a field-independent thermal term and no "
+    "current-induced torque contribution",
+    "umr_spin_ohm": "xy: spin-dependent part, umr_ohm - umr_thermal_ohm",
+    "umr_thermal_ratio, umr_spin_ratio": "the parts over the mean resistance c0",
     "anisotropy_field_T": "xy: in-plane uniaxial anisotropy field B_k (easy axis along the "
     "current; < 0: across it), fitted or given",
     "effective_demag_field_T": "zx/zy: effective demagnetising field B_eff = mu0*M_eff "

@@ -28,6 +28,7 @@ def named_amplitudes(
     amplitudes["kind"] = kinds
     amplitudes["resistance_c0"] = c0
     amplitudes["resistance_c0_err"] = c0_err
+    amplitudes["n_points"] = resistance.n_points
     frames: list[pd.DataFrame] = []
     fits = {"resistance": resistance, "unidirectional": unidirectional}
     for kind, table in (("longitudinal", LONGITUDINAL), ("transverse", TRANSVERSE)):

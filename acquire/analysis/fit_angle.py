@@ -29,6 +29,7 @@ from acquire.analysis.fit_rows import (
     join_notes,
     tidy_rows,
 )
+from acquire.analysis.fit_thermal import thermal_separation
 from acquire.analysis.fits import (
     HARMONIC_TERMS,
     GroupedLinearFit,
@@ -117,6 +118,7 @@ def angle_fits(
     )
     amplitudes["anisotropy_T"] = resistance.anisotropy_T
     frames.extend(named)
+    frames.append(thermal_separation(amplitudes, context))
     rows = pd.concat([frame for frame in frames if not frame.empty], ignore_index=True)
     return AngleResult(rows, amplitudes)
 

@@ -31,6 +31,7 @@ class RunContext:
     channel_probes: Mapping[str, str] = field(default_factory=dict)
     layers: tuple[Mapping[str, Any], ...] = ()
     width_m: float | None = None
+    length_m: float | None = None
     sheet_resistance_ohm: float | None = None
 
     def channel_kind(self, channel: str) -> str:
@@ -81,7 +82,9 @@ def read_run_context(run_dir: Path) -> RunContext:
         channel_probes=probes,
         layers=layers,
         width_m=_number(channel_geometry.get("width_m", channel_geometry.get("width")))
-        or _number(sample.get("width_m")),
+        or _number(sample.get("width_m", sample.get("channel_width_m"))),
+        length_m=_number(channel_geometry.get("length_m", channel_geometry.get("length")))
+        or _number(sample.get("length_m", sample.get("channel_length_m"))),
         sheet_resistance_ohm=_number(
             sample.get("sheet_resistance_ohm", sample.get("sheet_resistance"))
         ),
