@@ -275,18 +275,57 @@ def field_points(fields: np.ndarray, umr: np.ndarray, sigma: float = 1e-6) -> pd
     )
 
 
-def test_field_fit_inverse_form_and_negative_branch() -> None:
+def test_field_fit_inverse_form_with_both_signs_of_m_combined() -> None:
     magnitudes = np.array([0.05, 0.1, 0.2, 0.5, 1.0, 2.0, 5.0])
     independent, dependent, scale = 2e-3, 1.5e-3, 0.3
     umr = independent + dependent * scale / (magnitudes + scale)
-    # the UMR is odd in m: the negative branch mirrors the positive one
-    points = field_points(np.concatenate([magnitudes, -magnitudes]), np.concatenate([umr, -umr]))
+    # The UMR is odd in m, and a negative field at 90 deg turns m to -y; an offset of the
+    # unidirectional part (even in m) must cancel in the m-odd combination.
+    offset = 4e-4
+    points = field_points(np.concatenate([magnitudes, -magnitudes]),
+                          np.concatenate([umr, -umr]) + offset)
     table = build_fits_table(points, RunContext())
     scale_rows = rows(table, "field", "umr_field_scale_T")
-    assert scale_rows["value"].tolist() == pytest.approx([scale, scale], rel=1e-5)
+    assert scale_rows["value"].tolist() == pytest.approx([scale], rel=1e-5)
     independents = rows(table, "field", "umr_field_independent_ohm")
-    assert sorted(independents["value"]) == pytest.approx([-independent, independent], rel=1e-5)
-    assert independents["note"].str.contains("negative fields").sum() == 1
+    assert independents["value"].tolist() == pytest.approx([independent], rel=1e-5)
+    assert "+m and -m combined" in independents["note"].iloc[0]
+
+
+def test_field_loop_branches_fitted_apart_without_zero_and_switching_fields() -> None:
+    # A loop -1 T -> 1 T -> -1 T at 90 deg whose resistance differs between the branches
+    # below 0.15 T (switching); the UMR follows the inverse form on both branches.
+    up = np.round(np.arange(-1.0, 1.0001, 0.05), 10)
+    fields = np.concatenate([up, up[::-1][1:]])
+    branch_up = np.arange(fields.size) < up.size
+    magnitude = np.abs(fields)
+    umr = np.sign(fields) * (2e-3 + 1e-3 * 0.3 / (magnitude + 0.3))
+    resistance = 900.0 + np.where((magnitude < 0.15) & branch_up, 0.5, 0.0)
+    umr = np.where((magnitude < 0.15) & branch_up, -umr, umr)  # m not yet reversed
+    umr[fields == 0] = 5e-3  # a spike at B = 0 that must not enter the fit
+    points = field_points(fields, umr).assign(point=np.arange(fields.size),
+                                              resistance_ohm=resistance)
+    table = build_fits_table(points, RunContext())
+    scale_rows = rows(table, "field", "umr_field_scale_T")
+    assert sorted(scale_rows["branch"]) == ["down", "up"]
+    assert scale_rows["value"].tolist() == pytest.approx([0.3, 0.3], rel=1e-4)
+    note = scale_rows["note"].iloc[0]
+    assert "B = 0 left out" in note and "switching region |B| <= 0.1 T" in note
+
+
+def test_field_fit_warns_when_the_range_stops_near_the_field_scale() -> None:
+    magnitudes = np.array([0.05, 0.1, 0.2, 0.4, 0.6, 0.8, 1.0])
+    umr = 2e-3 + 1.5e-3 * 2.0 / (magnitudes + 2.0)  # Bs = 2 T, fields up to 0.5 Bs
+    table = build_fits_table(field_points(magnitudes, umr, sigma=1e-7), RunContext())
+    note = rows(table, "field", "umr_field_independent_ohm")["note"].iloc[0]
+    assert "WARNING: the fields reach" in note
+
+
+def test_no_field_or_current_umr_rows_for_a_hall_channel() -> None:
+    magnitudes = np.array([0.1, 0.2, 0.5, 1.0, 2.0])
+    points = field_points(magnitudes, 1e-3 + 0 * magnitudes).assign(channel="vxy")
+    table = build_fits_table(points, RunContext())
+    assert table[table["analysis"].isin(["field", "current"])].empty
 
 
 def test_field_fit_with_three_fields_falls_back_to_the_linear_form() -> None:

@@ -11,13 +11,18 @@ from numpy.typing import NDArray
 from acquire.analysis.fits import GroupedLinearFit
 from acquire.store.csvw import Column
 
-KEY_COLUMNS: tuple[str, ...] = ("temperature_K", "field_T", "current_A", "angle_deg", "channel")
+KEY_COLUMNS: tuple[str, ...] = (
+    "temperature_K", "field_T", "current_A", "angle_deg", "channel", "branch"
+)
+TEXT_KEYS: tuple[str, ...] = ("channel", "branch")
 FIT_COLUMNS: tuple[Column, ...] = (
     Column("temperature_K", "double", "K", "group key: temperature setpoint"),
     Column("field_T", "double", "T", "group key: field setpoint mu0*H"),
     Column("current_A", "double", "A", "group key: current amplitude"),
     Column("angle_deg", "double", "deg", "group key: field angle setpoint"),
     Column("channel", "string", "", "group key: voltmeter channel"),
+    Column("branch", "string", "", "group key of field fits: up (field rising) or down "
+           "(falling) on a loop measured both ways; empty when pooled"),
     Column("analysis", "string", "", "angle, current, field, temperature or heating"),
     Column("quantity", "string", "", "name of the fitted quantity"),
     Column("value", "double", "", "fitted value, in the row's unit"),
@@ -52,7 +57,9 @@ def tidy_rows(
             columns[key] = keys[key].to_numpy()
         else:
             columns[key] = np.full(
-                n, "" if key == "channel" else np.nan, dtype=object if key == "channel" else float
+                n,
+                "" if key in TEXT_KEYS else np.nan,
+                dtype=object if key in TEXT_KEYS else float,
             )
     columns.update(
         analysis=analysis,
@@ -75,7 +82,7 @@ def empty_fits_table() -> pd.DataFrame:
 def _dtype(name: str) -> str:
     if name == "n_points":
         return "int64"
-    if name in ("channel", "analysis", "quantity", "unit", "model", "note"):
+    if name in ("channel", "branch", "analysis", "quantity", "unit", "model", "note"):
         return "object"
     return "float64"
 

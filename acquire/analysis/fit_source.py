@@ -32,7 +32,8 @@ class AnalysisSource:
     With angle sweeps these are the angle fits' amplitudes of the longitudinal channels
     (resistance_c0 as resistance, umr_ohm and umr_ratio as the unidirectional part) with an
     empty angle: one fit per sweep instead of one per angle, and no fit at angles where the
-    UMR vanishes. Without angle sweeps they are the points, at each fixed angle.
+    UMR vanishes. Without angle sweeps they are the longitudinal channels' points, at each
+    fixed angle (with their measured order, `point`, for the field branches).
     """
 
     frame: pd.DataFrame
@@ -58,7 +59,11 @@ def analysis_source(
         return AnalysisSource(
             renamed[list(SOURCE_COLUMNS)].reset_index(drop=True), "angle-fit amplitudes", True
         )
-    return AnalysisSource(points[list(SOURCE_COLUMNS)], "points at fixed angle", False)
+    # The current, field and heating forms are those of a longitudinal resistance: a Hall
+    # channel's unidirectional part is not a UMR.
+    columns = [*SOURCE_COLUMNS, "point"] if "point" in points else list(SOURCE_COLUMNS)
+    fixed = longitudinal_only(points[columns], context).reset_index(drop=True)
+    return AnalysisSource(fixed, "points at fixed angle", False)
 
 
 def longitudinal_only(frame: pd.DataFrame, context: RunContext) -> pd.DataFrame:

@@ -83,7 +83,7 @@ QUANTITY_NOTES: dict[str, str] = {
 
 def read_fits_table(path: Path) -> pd.DataFrame:
     """fits.csv back as written: text columns as str (empty, not NaN), numbers as float."""
-    text = ("channel", "analysis", "quantity", "unit", "model", "note")
+    text = ("channel", "branch", "analysis", "quantity", "unit", "model", "note")
     table = pd.read_csv(path, dtype={name: str for name in text}, keep_default_na=False)
     for name in FIT_COLUMN_NAMES:
         if name not in table:
@@ -105,7 +105,7 @@ def build_fits_table(
     frames = [
         angle.rows,
         current_fits(source, context),
-        field_fits(source, options.field_form),
+        field_fits(source, options.field_form, context.rotation_plane),
         temperature,
         heating_fits(source, temperature, context, options),
     ]
