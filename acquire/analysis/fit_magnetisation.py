@@ -31,7 +31,9 @@ FloatArray = NDArray[np.float64]
 
 # B_a / |B| tried for the start (both signs: an easy axis across the current in xy, a
 # perpendicular easy axis out of plane).
-_START_RATIOS = np.geomspace(0.002, 4.0, 156)  # steps of 5 %
+_START_RATIOS = np.geomspace(0.002, 4.0, 28)  # steps of 32 %
+_FINE_SPAN = 0.2
+_FINE_STEPS = 17
 _GAUSS_NEWTON_STEPS = 12
 _AMBIGUOUS_DEG = 1.0
 
@@ -188,35 +190,50 @@ def _grid_start(
     n_groups: int,
     plane: str,
 ) -> FloatArray:
-    """Per group, the B_a on a grid (5 % steps of B_a/|B|, both signs) with the smallest
-    chi^2 over all its points. The steps are fine because a sweep with a large signal has a
-    narrow valley in B_a; the minimum nearest the field is used (no history), in chunks of
-    candidates so the memory stays bounded."""
+    """Per group, the B_a of smallest chi^2 over all its points: a coarse grid of B_a/|B|
+    (both signs), then a fine one (2.5 % steps) around each of the two best coarse values. A
+    sweep with a large signal has a narrow valley in B_a next to a shallower false one, hence
+    the second look. The minimum nearest the field is used (no history)."""
     field = _group_field(ids, field_T, n_groups)
-    ratios = np.concatenate([[0.0], _START_RATIOS, -_START_RATIOS])
+    coarse = np.concatenate([[0.0], _START_RATIOS, -_START_RATIOS])[:, None] * field[None, :]
+    chi2 = _grid_chi2(coarse, angle_deg, field_T, values, errors, ids, n_groups, plane)
+    best_two = np.argsort(chi2, axis=0)[:2]
+    centres = np.take_along_axis(coarse, best_two, axis=0)  # (2, groups)
+    spread = 1.0 + np.linspace(-_FINE_SPAN, _FINE_SPAN, _FINE_STEPS)
+    fine = (centres[:, None, :] * spread[None, :, None]).reshape(-1, n_groups)
+    fine = np.concatenate([fine, centres[:1]])  # the coarse best stays a candidate
+    fine_chi2 = _grid_chi2(fine, angle_deg, field_T, values, errors, ids, n_groups, plane)
+    return fine[np.argmin(fine_chi2, axis=0), np.arange(n_groups)]
+
+
+def _grid_chi2(
+    candidates: FloatArray,
+    angle_deg: FloatArray,
+    field_T: FloatArray,
+    values: FloatArray,
+    errors: FloatArray,
+    ids: NDArray[np.int64],
+    n_groups: int,
+    plane: str,
+) -> FloatArray:
+    """chi^2 (trials, groups) of the harmonic fit at each candidate B_a (trials, groups),
+    in chunks of candidates so the memory stays bounded."""
     sigma = np.where(np.isfinite(errors) & (errors > 0), errors, np.nan)
-    member = (ids >= 0) & np.isfinite(values) & np.isfinite(sigma)
-    rows = np.flatnonzero(member)
-    best = np.zeros(n_groups)
-    best_chi2 = np.full(n_groups, np.inf)
+    rows = np.flatnonzero((ids >= 0) & np.isfinite(values) & np.isfinite(sigma))
+    result = np.full(candidates.shape, np.inf)
     chunk = max(1, 200_000 // max(rows.size, 1))
-    for first in range(0, ratios.size, chunk):
-        trial = ratios[first : first + chunk]
-        n_trials = trial.size
+    for first in range(0, candidates.shape[0], chunk):
+        trial = candidates[first : first + chunk]
+        n_trials = trial.shape[0]
         trial_ids = (ids[rows][None, :] + n_groups * np.arange(n_trials)[:, None]).ravel()
-        row_anisotropy = (trial[:, None] * field[ids[rows]][None, :]).ravel()
         alpha = equilibrium_angle_deg(np.tile(angle_deg[rows], n_trials),
-                                      np.tile(field_T[rows], n_trials), row_anisotropy, plane)
+                                      np.tile(field_T[rows], n_trials),
+                                      trial[:, ids[rows]].ravel(), plane)
         y, e = np.tile(values[rows], n_trials), np.tile(sigma[rows], n_trials)
         design = harmonic_design(alpha)
         fit = fit_linear_by_group(design, y, e, trial_ids, n_groups * n_trials)
         residual = y - np.einsum("ni,ni->n", design, np.nan_to_num(fit.coefficients[trial_ids]))
         chi2 = np.bincount(trial_ids, weights=(residual / e) ** 2, minlength=n_groups * n_trials)
         chi2 = np.where(np.isfinite(fit.coefficients[:, 0]), chi2, np.inf)
-        chi2 = chi2.reshape(n_trials, n_groups)
-        index = np.argmin(chi2, axis=0)
-        found = chi2[index, np.arange(n_groups)]
-        better = found < best_chi2
-        best = np.where(better, trial[index] * field, best)
-        best_chi2 = np.where(better, found, best_chi2)
-    return best
+        result[first : first + n_trials] = chi2.reshape(n_trials, n_groups)
+    return result

@@ -61,35 +61,44 @@ def _relax(
 
     The step is -g/|h| (downhill also where the curvature is negative), capped at a trust
     radius and halved until the energy does not rise, so each element stays in the basin it
-    started in, or falls into the next one past a switching field.
+    started in, or falls into the next one past a switching field. Only the elements not yet
+    converged are worked on.
     """
-    alpha = alpha.copy()
-    scale = np.abs(ba) + field + 1e-300
-    e_old = energy(alpha, phi, field, ba)
+    alpha = alpha.astype(float, copy=True).ravel()
+    phi, field, ba = (np.asarray(v, dtype=float).ravel() for v in (phi, field, ba))
+    shape_out = alpha.shape
+    active = np.arange(alpha.size)
     for _ in range(_ITERATIONS):
-        gradient = 0.5 * ba * np.sin(2 * alpha) + field * np.sin(alpha - phi)
-        curvature = ba * np.cos(2 * alpha) + field * np.cos(alpha - phi)
-        converged = (np.abs(gradient) <= 1e-13 * scale) & (curvature >= 0)
-        if converged.all():
+        if active.size == 0:
             break
-        floor = 1e-9 * scale
-        step = -gradient / np.maximum(np.abs(curvature), floor)
+        a, p, f, b = alpha[active], phi[active], field[active], ba[active]
+        scale = np.abs(b) + f + 1e-300
+        gradient = 0.5 * b * np.sin(2 * a) + f * np.sin(a - p)
+        curvature = b * np.cos(2 * a) + f * np.cos(a - p)
+        flat = np.abs(gradient) <= 1e-13 * scale
+        converged = flat & (curvature >= 0)
+        step = -gradient / np.maximum(np.abs(curvature), 1e-9 * scale)
         # On a maximum or saddle with no gradient, move a trust radius to break the symmetry.
-        stuck = (curvature < 0) & (np.abs(gradient) <= 1e-13 * scale)
-        step = np.where(stuck, _TRUST_RAD, step)
+        step = np.where(flat & (curvature < 0), _TRUST_RAD, step)
         step = np.clip(step, -_TRUST_RAD, _TRUST_RAD)
-        step = np.where(converged, 0.0, step)
+        keep = ~converged
+        a, p, f, b, step, scale = a[keep], p[keep], f[keep], b[keep], step[keep], scale[keep]
+        active = active[keep]
+        e_old = energy(a, p, f, b)
+        trial = a + step
+        e_new = energy(trial, p, f, b)
         for _ in range(_HALVINGS):
-            trial = alpha + step
-            e_new = energy(trial, phi, field, ba)
             rises = e_new > e_old + 1e-15 * scale
             if not rises.any():
                 break
             step = np.where(rises, 0.5 * step, step)
-        keep = e_new <= e_old + 1e-15 * scale
-        alpha = np.where(keep, trial, alpha)
-        e_old = np.where(keep, e_new, e_old)
-    return alpha
+            trial = np.where(rises, a + step, trial)
+            e_new = np.where(rises, energy(trial, p, f, b), e_new)
+        moved = e_new <= e_old + 1e-15 * scale
+        alpha[active] = np.where(moved, trial, a)
+        # An element that can no longer lower its energy has arrived (to rounding).
+        active = active[moved & (np.abs(trial - a) > 1e-15)]
+    return alpha.reshape(shape_out)
 
 
 def equilibrium_angle_deg(
@@ -107,8 +116,29 @@ def equilibrium_angle_deg(
     easy = EASY_DIRECTION_DEG[plane]
     start = phi if start_deg is None else np.deg2rad(np.asarray(start_deg, float) - easy)
     start = np.broadcast_to(start, phi.shape).astype(float)
-    alpha = _relax(start, phi.astype(float), field.astype(float), ba.astype(float))
-    return np.rad2deg(alpha) + easy
+    # Sweeps repeat the same (angle, field, B_a) over currents, channels and temperatures:
+    # each distinct state is solved once.
+    states = np.column_stack([a.ravel() for a in (phi, field, ba, start)])
+    finite = np.all(np.isfinite(states), axis=1)
+    alpha = np.full(states.shape[0], np.nan)
+    if finite.any():
+        unique, inverse = _distinct_rows(states[finite])
+        solved = _relax(unique[:, 3], unique[:, 0], unique[:, 1], unique[:, 2])
+        alpha[finite] = solved[inverse]
+    return np.rad2deg(alpha.reshape(phi.shape)) + easy
+
+
+def _distinct_rows(rows: FloatArray) -> tuple[FloatArray, NDArray[np.int64]]:
+    """Distinct rows and each row's index among them (a lexsort: much faster than
+    np.unique(axis=0) on floats)."""
+    order = np.lexsort(rows.T[::-1])
+    ordered = rows[order]
+    new = np.ones(len(rows), bool)
+    new[1:] = np.any(ordered[1:] != ordered[:-1], axis=1)
+    labels = np.cumsum(new) - 1
+    inverse = np.empty(len(rows), np.int64)
+    inverse[order] = labels
+    return ordered[new], inverse
 
 
 def follow_sweeps(
