@@ -150,10 +150,12 @@ def test_pulls_of_anisotropy_umr_and_hall_over_seeds() -> None:
     # Pulls (fit - truth) / error over seeds: mean 0 and spread 1 when the errors are right.
     # FLIPSWEEP_PULL_SEEDS=30 runs the full check; the default few seeds only catch gross
     # errors, hence the wide band.
-    pulls: dict[str, list[float]] = {"bk": [], "umr": [], "phe": []}
+    pulls: dict[str, list[float]] = {"bk": [], "umr": [], "phe": [], "thermal": [],
+                                     "ahe_zx": [], "beff_zx": [], "amr_zx": []}
     for seed in range(SEEDS):
         points, sample = sweep_points("xy", 0.1, 2e-3, seed=100 + seed)
-        table = build_fits_table(points, RunContext(rotation_plane="xy", **CONTEXT))
+        table = build_fits_table(points, RunContext(rotation_plane="xy", length_m=40e-6,
+                                                    width_m=5e-6, **CONTEXT))
         bk = fitted(table, "anisotropy_field_T", "vxx")
         pulls["bk"].append((bk["value"] - BK) / bk["error"])
         sample.apply_field(0.1, 90.0)  # m along +y: the unidirectional part is its m_y term
@@ -164,6 +166,20 @@ def test_pulls_of_anisotropy_umr_and_hall_over_seeds() -> None:
         truth_phe = sample.params.planar_hall_amplitude_ohm * sample._thermal_factor(
             sample.device_temperature_K(2e-3, 300.0))
         pulls["phe"].append((phe["value"] - truth_phe) / phe["error"])
+        thermal = fitted(table, "umr_thermal_ohm", "vxx")
+        truth_thermal = sample.unidirectional_parts("longitudinal", 2e-3, 300.0).thermal_ohm
+        pulls["thermal"].append((thermal["value"] - truth_thermal) / thermal["error"])
+        # out of plane below B_eff: anomalous Hall, B_eff and AMR
+        points, sample = sweep_points("zx", 0.6 * BD, 1e-3, seed=200 + seed)
+        table = build_fits_table(points, RunContext(rotation_plane="zx", **CONTEXT))
+        ahe = fitted(table, "anomalous_hall_ohm", "vxy")
+        pulls["ahe_zx"].append((ahe["value"] - sample.params.anomalous_hall_ohm) / ahe["error"])
+        beff = fitted(table, "effective_demag_field_T", "vxy")
+        pulls["beff_zx"].append((beff["value"] - (BD + BK)) / beff["error"])
+        amr = fitted(table, "amr_ohm", "vxx")
+        heated = sample._thermal_factor(sample.device_temperature_K(1e-3, 300.0))
+        truth_amr = sample.params.amr_ratio * sample.params.resistance_ohm * heated
+        pulls["amr_zx"].append((amr["value"] - truth_amr) / amr["error"])
     for name, values in pulls.items():
         z = np.array(values)
         band = 4.0 / math.sqrt(len(z))

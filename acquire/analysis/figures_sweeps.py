@@ -7,6 +7,7 @@ from typing import Any
 import numpy as np
 import pandas as pd
 
+from acquire.analysis.angle_conventions import ANISOTROPY_QUANTITY
 from acquire.analysis.figure_style import (
     MAX_SERIES,
     SERIES_COLOURS,
@@ -17,8 +18,9 @@ from acquire.analysis.figure_style import (
     rows_matching,
     series_label,
 )
+from acquire.analysis.fit_magnetisation import angle_fit_curve
 from acquire.analysis.fit_tables import RunContext
-from acquire.analysis.fits import FIELD_FORMS, field_inverse, field_linear, harmonic_curve
+from acquire.analysis.fits import FIELD_FORMS, field_inverse, field_linear
 
 ANGLE_GROUP_KEYS = ("temperature_K", "field_T", "current_A", "channel")
 
@@ -65,7 +67,11 @@ def angle_figure(points: pd.DataFrame, fits: pd.DataFrame, context: RunContext) 
                     elinewidth=0.8,
                 )
                 if np.all(np.isfinite(coefficients)):
-                    curve = harmonic_curve(fine - offset, coefficients)
+                    # The coefficients are in the magnetisation angle of the thin film.
+                    plane = context.rotation_plane
+                    anisotropy = _coefficient(fits, row, ANISOTROPY_QUANTITY[plane])
+                    curve = angle_fit_curve(fine - offset, float(row["field_T"]), anisotropy,
+                                            plane, coefficients)
                     axis.plot(fine, (curve - shift) * factor, color=colour, linewidth=1.2)
             axis.set_xlabel(f"angle {angle_name} (deg)")
             axis.set_xticks(np.arange(0, 361, 90))

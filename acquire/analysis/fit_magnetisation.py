@@ -123,6 +123,20 @@ def fit_on_magnetisation(
     return MagnetisationFit(chosen, anisotropy, anisotropy_err, alpha, excluded, determined)
 
 
+def angle_fit_curve(
+    field_angle_deg: FloatArray,
+    field_T: float,
+    anisotropy_T: float,
+    plane: str,
+    coefficients: list[float],
+) -> FloatArray:
+    """The fitted harmonic model against the field angle (for plotting a sweep's fit): the
+    magnetisation angle of the minimum nearest the field, then the five harmonics."""
+    anisotropy = anisotropy_T if np.isfinite(anisotropy_T) else 0.0
+    alpha = equilibrium_angle_deg(field_angle_deg, field_T, anisotropy, plane)
+    return harmonic_design(alpha) @ np.asarray(coefficients, dtype=float)
+
+
 def _group_field(ids: NDArray[np.int64], field_T: FloatArray, n_groups: int) -> FloatArray:
     member = ids >= 0
     total = np.bincount(ids[member], weights=np.abs(field_T[member]), minlength=n_groups)
