@@ -307,7 +307,7 @@ def test_field_loop_branches_fitted_apart_without_zero_and_switching_fields() ->
                                               resistance_ohm=resistance)
     table = build_fits_table(points, RunContext())
     scale_rows = rows(table, "field", "umr_field_scale_T")
-    assert sorted(scale_rows["branch"]) == ["down", "up"]
+    assert sorted(scale_rows["branch"]) == ["back", "up"]
     assert scale_rows["value"].tolist() == pytest.approx([0.3, 0.3], rel=1e-4)
     note = scale_rows["note"].iloc[0]
     assert "B = 0 left out" in note and "switching region |B| <= 0.1 T" in note

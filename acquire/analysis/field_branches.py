@@ -2,7 +2,7 @@
 and the sign of the magnetisation that makes the unidirectional part one odd function.
 
 - Branch: within one sequence (same temperature, angle, current and channel, in measured
-  order) a point is on the `up` branch when the field was rising towards it and on `down`
+  order) a point is on the `up` branch when the field was rising towards it and on `back`
   when it was falling (the first point takes the direction towards the second). Branches are
   told apart only where the run measured the same field state on both (a loop with a
   return); otherwise the branch is empty and the sweeps are pooled.
@@ -29,7 +29,7 @@ SWITCHING_SIGMAS: float = 4.0
 
 
 def sweep_direction(frame: pd.DataFrame) -> NDArray[np.object_]:
-    """'up' or 'down' for every row (see the module docstring), '' where no field."""
+    """'up' or 'back' for every row (see the module docstring), '' where no field."""
     result = np.full(len(frame), "", dtype=object)
     if frame.empty or "point" not in frame:
         return result
@@ -48,7 +48,7 @@ def sweep_direction(frame: pd.DataFrame) -> NDArray[np.object_]:
         for k in range(1, direction.size):
             if direction[k] == 0:
                 direction[k] = direction[k - 1]
-        result[rows] = np.where(direction > 0, "up", np.where(direction < 0, "down", ""))
+        result[rows] = np.where(direction > 0, "up", np.where(direction < 0, "back", ""))
     result[~np.isfinite(field)] = ""
     return result
 
@@ -89,7 +89,7 @@ def switching_limit(frame: pd.DataFrame, branch: NDArray[np.object_]) -> NDArray
     values = ["resistance_ohm", "resistance_ohm_err", "unidirectional_ohm",
               "unidirectional_ohm_err"]
     up = keyed[keyed["branch"] == "up"].groupby(keys, dropna=False)[values].mean()
-    down = keyed[keyed["branch"] == "down"].groupby(keys, dropna=False)[values].mean()
+    down = keyed[keyed["branch"] == "back"].groupby(keys, dropna=False)[values].mean()
     both = up.merge(down, left_index=True, right_index=True, suffixes=("_up", "_down"))
     if both.empty:
         return limit
@@ -121,7 +121,7 @@ def has_branch_pairs(frame: pd.DataFrame, branch: NDArray[np.object_]) -> NDArra
     for group in range(len(keys)):
         rows = ids == group
         ups = set(field[rows & (branch == "up")].round(12))
-        downs = set(field[rows & (branch == "down")].round(12))
+        downs = set(field[rows & (branch == "back")].round(12))
         paired[group] = bool(ups & downs)
     result[:] = paired[ids]
     return result

@@ -21,7 +21,7 @@ FIT_COLUMNS: tuple[Column, ...] = (
     Column("current_A", "double", "A", "group key: current amplitude"),
     Column("angle_deg", "double", "deg", "group key: field angle setpoint"),
     Column("channel", "string", "", "group key: voltmeter channel"),
-    Column("branch", "string", "", "group key of field fits: up (field rising) or down "
+    Column("branch", "string", "", "group key of field fits: up (field rising) or back "
            "(falling) on a loop measured both ways; empty when pooled"),
     Column("analysis", "string", "", "angle, current, field, temperature or heating"),
     Column("quantity", "string", "", "name of the fitted quantity"),
