@@ -188,3 +188,20 @@ def test_pulls_of_anisotropy_umr_and_hall_over_seeds() -> None:
             assert 0.7 < z.std(ddof=1) < 1.35, (name, z)  # sd of the sd ~ 1/sqrt(2n) = 0.13
         else:
             assert np.all(np.abs(z) < 5), (name, z)
+
+
+def test_longitudinal_sweep_can_take_b_eff_from_the_anomalous_hall_channel() -> None:
+    from acquire.analysis.fit_context import FitOptions
+
+    points, sample = sweep_points("zx", 0.6 * BD, 1e-3, seed=12)
+    context = RunContext(rotation_plane="zx", **CONTEXT)
+    own = build_fits_table(points, context)
+    shared = build_fits_table(points, context, FitOptions(anisotropy_from_hall=True))
+    hall = fitted(shared, "effective_demag_field_T", "vxy")
+    taken = fitted(shared, "effective_demag_field_T", "vxx")
+    assert taken["value"] == hall["value"] and "anomalous Hall" in taken["note"]
+    truth = sample.params.amr_ratio * sample.params.resistance_ohm
+    amr = fitted(shared, "amr_ohm", "vxx")
+    # m_z measured by the Hall channel pins m: the AMR is better determined than alone.
+    assert amr["value"] == pytest.approx(truth, rel=0.02)
+    assert amr["error"] < fitted(own, "amr_ohm", "vxx")["error"]

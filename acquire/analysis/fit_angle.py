@@ -21,7 +21,11 @@ from acquire.analysis.angle_conventions import ANISOTROPY_QUANTITY
 from acquire.analysis.angle_named import named_amplitudes
 from acquire.analysis.fit_context import RunContext
 from acquire.analysis.fit_groups import distinct_per_group, group_ids, group_mean, keep_groups
-from acquire.analysis.fit_magnetisation import MagnetisationFit, fit_on_magnetisation
+from acquire.analysis.fit_magnetisation import (
+    MagnetisationFit,
+    fit_on_magnetisation,
+    hold_anisotropy,
+)
 from acquire.analysis.fit_rows import (
     coefficient_rows,
     empty_fits_table,
@@ -58,8 +62,13 @@ def angle_fits(
     context: RunContext,
     apply_offset: bool,
     anisotropy_T: float | None = None,
+    anisotropy_from_hall: bool = False,
 ) -> AngleResult:
-    """Fits of resistance and unidirectional part per (T, field, current, channel) sweep."""
+    """Fits of resistance and unidirectional part per (T, field, current, channel) sweep.
+
+    anisotropy_T holds the plane's anisotropy field fixed; anisotropy_from_hall (zx, zy)
+    gives each longitudinal sweep the B_eff fitted to the transverse sweep measured with it,
+    whose anomalous Hall signal is m_z itself (R_xy = R_AHE m_z)."""
     swept = points[np.isfinite(points["angle_deg"].to_numpy())]
     ids, keys = group_ids(swept, ANGLE_KEYS)
     angle = swept["angle_deg"].to_numpy(float)
@@ -74,11 +83,19 @@ def angle_fits(
     field = swept["field_T"].to_numpy(float)
     order = swept["point"].to_numpy(float) if "point" in swept else np.arange(len(swept), 0.0)
 
+    held_from = np.full(len(keys), "", dtype=object)
+
     def fit_resistance(angles: NDArray[np.float64]) -> MagnetisationFit:
         values, errors = _pooled(swept, "resistance_ohm", ids, len(keys))
-        return fit_on_magnetisation(
+        fitted = fit_on_magnetisation(
             angles, field, values, errors, ids, len(keys), plane, order, anisotropy_T
         )
+        if not anisotropy_from_hall or anisotropy_T is not None or plane == "xy":
+            return fitted
+        held, held_err, sources = _from_hall(keys, kinds, fitted)
+        held_from[:] = sources
+        return hold_anisotropy(fitted, held, held_err, angles, field, values, errors, ids,
+                               plane, order)
 
     resistance = fit_resistance(angle)
     offset, offset_err = _mounting_offsets(resistance.fit, longitudinal, plane)
@@ -96,7 +113,7 @@ def angle_fits(
 
     name = "phi_M" if plane == "xy" else "theta_M"
     model = harmonic_model(name)
-    group_notes = _group_notes(resistance, keys, plane, anisotropy_T, ids)
+    group_notes = _group_notes(resistance, keys, plane, anisotropy_T, ids, held_from)
     for label, fit in (("resistance", resistance.fit), ("unidirectional", unidirectional)):
         for index, term in enumerate(HARMONIC_TERMS):
             notes = [join_notes(a, b) for a, b in zip(fit_note(fit), group_notes)]
@@ -156,6 +173,7 @@ def _group_notes(
     plane: str,
     given: float | None,
     ids: NDArray[np.int64],
+    held_from: NDArray[np.object_],
 ) -> NDArray[np.object_]:
     excluded = np.bincount(ids[(ids >= 0) & resistance.excluded], minlength=len(keys))
     field = np.abs(keys["field_T"].to_numpy(float))
@@ -164,6 +182,8 @@ def _group_notes(
     for group in range(len(keys)):
         if given is not None:
             source = "given"
+        elif held_from[group]:
+            source = f"from {held_from[group]}'s anomalous Hall (m_z = R_xy/R_AHE)"
         elif resistance.determined[group]:
             source = "fitted"
         else:
@@ -180,6 +200,28 @@ def _group_notes(
             )
         notes.append(join_notes(*parts))
     return np.array(notes, dtype=object)
+
+
+def _from_hall(
+    keys: pd.DataFrame, kinds: NDArray[np.str_], fitted: MagnetisationFit
+) -> tuple[NDArray[np.float64], NDArray[np.float64], NDArray[np.object_]]:
+    """Per group, the B_a of the transverse sweep at the same temperature, field and current
+    (NaN where none, or for the transverse sweeps themselves)."""
+    held = np.full(len(keys), np.nan)
+    held_err = np.full(len(keys), np.nan)
+    sources = np.full(len(keys), "", dtype=object)
+    pair = ["temperature_K", "field_T", "current_A"]
+    labels = ["|".join(str(value) for value in row) for row in keys[pair].itertuples(index=False)]
+    hall: dict[str, int] = {}
+    for group in np.flatnonzero((kinds == "transverse") & fitted.determined):
+        hall.setdefault(labels[group], int(group))
+    for group in np.flatnonzero(kinds == "longitudinal"):
+        source = hall.get(labels[group])
+        if source is not None:
+            held[group] = fitted.anisotropy_T[source]
+            held_err[group] = fitted.anisotropy_err_T[source]
+            sources[group] = str(keys["channel"].iloc[source])
+    return held, held_err, sources
 
 
 def _anisotropy_rows(

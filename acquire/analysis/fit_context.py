@@ -51,6 +51,8 @@ class FitOptions:
     # The plane's anisotropy field in tesla (B_k in xy, B_eff in zx/zy), held fixed in the
     # angle fits; None: fitted from each sweep.
     anisotropy_T: float | None = None
+    # zx/zy: each longitudinal sweep takes B_eff from the transverse sweep measured with it.
+    anisotropy_from_hall: bool = False
     dR_dT_ohm_per_K: float | None = None
     heating_warn_K: float = 5.0
 

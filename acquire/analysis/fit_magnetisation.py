@@ -123,6 +123,44 @@ def fit_on_magnetisation(
     return MagnetisationFit(chosen, anisotropy, anisotropy_err, alpha, excluded, determined)
 
 
+def hold_anisotropy(
+    fitted: MagnetisationFit,
+    held_T: FloatArray,
+    held_err_T: FloatArray,
+    angle_deg: FloatArray,
+    field_T: FloatArray,
+    values: FloatArray,
+    errors: FloatArray,
+    ids: NDArray[np.int64],
+    plane: str,
+    order: FloatArray,
+) -> MagnetisationFit:
+    """`fitted` with the groups whose held_T is finite refitted at that B_a (held fixed,
+    its error the source's); the other groups keep their own fit."""
+    n_groups = held_T.size
+    held = np.isfinite(held_T)
+    anisotropy = np.where(held, held_T, fitted.anisotropy_T)
+    fit, alpha, excluded = _linear_at(
+        anisotropy, angle_deg, field_T, values, errors, ids, n_groups, plane, order
+    )
+    row_held = (ids >= 0) & held[np.clip(ids, 0, None)]
+    merged = GroupedLinearFit(
+        np.where(held[:, None], fit.coefficients, fitted.fit.coefficients),
+        np.where(held[:, None, None], fit.covariance, fitted.fit.covariance),
+        np.where(held, fit.reduced_chi2, fitted.fit.reduced_chi2),
+        np.where(held, fit.n_points, fitted.fit.n_points),
+        np.where(held, fit.weighted, fitted.fit.weighted),
+    )
+    return MagnetisationFit(
+        merged,
+        anisotropy,
+        np.where(held, held_err_T, fitted.anisotropy_err_T),
+        np.where(row_held, alpha, fitted.alpha_deg),
+        np.where(row_held, excluded, fitted.excluded),
+        np.where(held, False, fitted.determined),
+    )
+
+
 def angle_fit_curve(
     field_angle_deg: FloatArray,
     field_T: float,

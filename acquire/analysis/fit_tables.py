@@ -99,7 +99,8 @@ def build_fits_table(
     """Every analysis the data support, as one tidy table (columns FIT_COLUMN_NAMES)."""
     options = options or FitOptions()
     points = normalise_points(points)
-    angle = angle_fits(points, context, options.angle_offset, options.anisotropy_T)
+    angle = angle_fits(points, context, options.angle_offset, options.anisotropy_T,
+                       options.anisotropy_from_hall)
     source = analysis_source(points, angle.amplitudes, context)
     temperature = temperature_fits(angle.rows, source, context)
     frames = [

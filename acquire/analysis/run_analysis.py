@@ -40,6 +40,7 @@ def fit_run(
     dR_dT_ohm_per_K: float | None = None,
     heating_warn_K: float = 5.0,
     anisotropy_T: float | None = None,
+    anisotropy_from_hall: bool = False,
 ) -> Path:
     """Fit the run's points; write run_dir/fits.csv and its CSVW metadata; return fits.csv.
 
@@ -48,7 +49,8 @@ def fit_run(
     dR_dT_ohm_per_K: the sample's dR/dT for the heating estimate, when the run has no
     temperature series of its own. heating_warn_K: a temperature rise above this is flagged.
     anisotropy_T: the rotation plane's anisotropy field held fixed in the angle fits (B_k in
-    xy, B_eff in zx/zy); None fits it from each sweep.
+    xy, B_eff in zx/zy); None fits it from each sweep. anisotropy_from_hall (zx, zy): each
+    longitudinal sweep takes B_eff from the transverse sweep measured with it.
     """
     run_dir = Path(run_dir)
     if field_form not in FIELD_FORMS:
@@ -62,6 +64,7 @@ def fit_run(
         dR_dT_ohm_per_K=dR_dT_ohm_per_K,
         heating_warn_K=heating_warn_K,
         anisotropy_T=anisotropy_T,
+        anisotropy_from_hall=anisotropy_from_hall,
     )
     table = build_fits_table(read_points(points_path), read_run_context(run_dir), options)
     target = run_dir / "fits.csv"

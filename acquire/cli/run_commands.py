@@ -91,7 +91,8 @@ def cmd_fit(args: argparse.Namespace) -> int:
 
     path = fit_run(_with_points(args.dir), angle_offset=args.angle_offset,
                    field_form=args.field_form, dR_dT_ohm_per_K=args.dr_dt,
-                   heating_warn_K=args.heating_warn, anisotropy_T=args.anisotropy)
+                   heating_warn_K=args.heating_warn, anisotropy_T=args.anisotropy,
+                   anisotropy_from_hall=args.anisotropy_from_hall)
     for line in fit_summary(read_fits_table(path)):
         print(line)
     print(f"wrote {path}")
@@ -174,6 +175,10 @@ def _dir_command(name: str, text: str) -> Callable[[AddCommand], None]:
                 help="hold the rotation plane's anisotropy field fixed in the angle fits "
                      "(B_k in xy, the effective demagnetising field B_eff in zx/zy), instead "
                      "of fitting it from each sweep")
+            command.add_argument(
+                "--anisotropy-from-hall", action="store_true",
+                help="zx and zy: give each longitudinal sweep the B_eff fitted to the "
+                     "transverse sweep measured with it (its anomalous Hall signal is m_z)")
             command.add_argument(
                 "--dr-dt", type=float, default=None, metavar="OHM_PER_K",
                 help="the sample's dR/dT in ohm/K, to turn the heating slope into a "
