@@ -43,6 +43,7 @@ from acquire.analysis.fits import (
 )
 
 MIN_ANGLES: int = 5  # five harmonic coefficients
+POOR_FIT_CHI2: float = 3.0
 ANGLE_KEYS: tuple[str, ...] = ("temperature_K", "field_T", "current_A", "channel")
 
 
@@ -192,11 +193,21 @@ def _group_notes(
         parts = [f"on the magnetisation angle, {quantity} {ba[group]:.4g} T {source}"]
         if excluded[group]:
             parts.append(f"{excluded[group]} point(s) left out (two minima)")
-        if np.isfinite(field[group]) and field[group] <= abs(ba[group]):
+        rival = np.nan if resistance.rival_T is None else resistance.rival_T[group]
+        if np.isfinite(rival):
             parts.append(
-                f"WARNING: |B| = {field[group]:.3g} T is below the anisotropy field "
-                f"{abs(ba[group]):.3g} T: m does not follow the field, the amplitudes rest "
-                "on the thin-film model"
+                f"WARNING: not determined: {quantity} {rival:.4g} T fits about as well (the "
+                "field is too low to tell a lagging m from a smaller amplitude); give "
+                "--anisotropy or, out of plane, --anisotropy-from-hall"
+            )
+        if np.isfinite(field[group]) and field[group] <= abs(ba[group]):
+            # Below B_a the amplitudes rest on the model; a poor fit there is a warning.
+            poor = not resistance.fit.reduced_chi2[group] < POOR_FIT_CHI2
+            parts.append(
+                f"{'WARNING: ' if poor else ''}|B| = {field[group]:.3g} T is below the "
+                f"anisotropy field {abs(ba[group]):.3g} T: m does not follow the field, the "
+                "amplitudes rest on the thin-film model"
+                + (f" and its fit is poor (reduced chi2 > {POOR_FIT_CHI2:g})" if poor else "")
             )
         notes.append(join_notes(*parts))
     return np.array(notes, dtype=object)

@@ -31,7 +31,8 @@ FloatArray = NDArray[np.float64]
 
 # B_a / |B| tried for the start (both signs: an easy axis across the current in xy, a
 # perpendicular easy axis out of plane).
-_START_RATIOS = np.geomspace(0.002, 4.0, 28)  # steps of 32 %
+_START_RATIOS = np.geomspace(0.002, 100.0, 36)  # steps of 36 %
+RIVAL_CHI2 = 9.0
 _FINE_SPAN = 0.2
 _FINE_STEPS = 17
 _GAUSS_NEWTON_STEPS = 12
@@ -46,6 +47,8 @@ class MagnetisationFit:
     alpha_deg: FloatArray  # per row: the magnetisation angle at the final B_a
     excluded: NDArray[np.bool_]  # per row: left out (see the module docstring)
     determined: NDArray[np.bool_]  # per group: B_a determined by the data
+    # per group: a B_a on the other side of |B| fits about as well (NaN: none does)
+    rival_T: FloatArray | None = None
 
 
 def magnetisation_angles(
@@ -88,7 +91,7 @@ def fit_on_magnetisation(
         return MagnetisationFit(
             fit, anisotropy, np.full(n_groups, np.nan), alpha, excluded, np.zeros(n_groups, bool)
         )
-    anisotropy = _grid_start(angle_deg, field_T, values, errors, ids, n_groups, plane)
+    anisotropy, rival = _grid_start(angle_deg, field_T, values, errors, ids, n_groups, plane)
     anisotropy_err = np.full(n_groups, np.nan)
     determined = np.zeros(n_groups, bool)
     joint: GroupedLinearFit | None = None
@@ -120,7 +123,8 @@ def fit_on_magnetisation(
         fit.weighted,
     )
     anisotropy_err = np.where(determined, np.sqrt(joint.covariance[:, 5, 5]), np.nan)
-    return MagnetisationFit(chosen, anisotropy, anisotropy_err, alpha, excluded, determined)
+    return MagnetisationFit(chosen, anisotropy, anisotropy_err, alpha, excluded, determined,
+                            rival)
 
 
 def hold_anisotropy(
@@ -158,6 +162,7 @@ def hold_anisotropy(
         np.where(row_held, alpha, fitted.alpha_deg),
         np.where(row_held, excluded, fitted.excluded),
         np.where(held, False, fitted.determined),
+        None if fitted.rival_T is None else np.where(held, np.nan, fitted.rival_T),
     )
 
 
@@ -241,21 +246,40 @@ def _grid_start(
     ids: NDArray[np.int64],
     n_groups: int,
     plane: str,
-) -> FloatArray:
-    """Per group, the B_a of smallest chi^2 over all its points: a coarse grid of B_a/|B|
-    (both signs), then a fine one (2.5 % steps) around each of the two best coarse values. A
-    sweep with a large signal has a narrow valley in B_a next to a shallower false one, hence
-    the second look. The minimum nearest the field is used (no history)."""
+) -> tuple[FloatArray, FloatArray]:
+    """Per group, the B_a of smallest chi^2 over all its points, and a rival (NaN if none).
+
+    A coarse grid of B_a/|B| (both signs), then a fine one (2.5 % steps) around the best
+    coarse value with |B_a| <= |B| (m follows the field, lagging) and around the best with
+    |B_a| > |B| (m held near the easy direction). A sweep with a large signal has a narrow
+    valley in B_a, hence the fine look. Far below B_a the two kinds fit alike (a small
+    amplitude with m following the field, or a large one with m barely turning): the other
+    kind's best is the rival when its chi^2 is within RIVAL_CHI2 (or 20 %) of the best.
+    The minimum nearest the field is used (no history)."""
     field = _group_field(ids, field_T, n_groups)
-    coarse = np.concatenate([[0.0], _START_RATIOS, -_START_RATIOS])[:, None] * field[None, :]
+    ratios = np.concatenate([[0.0], _START_RATIOS, -_START_RATIOS])
+    coarse = ratios[:, None] * field[None, :]
     chi2 = _grid_chi2(coarse, angle_deg, field_T, values, errors, ids, n_groups, plane)
-    best_two = np.argsort(chi2, axis=0)[:2]
-    centres = np.take_along_axis(coarse, best_two, axis=0)  # (2, groups)
     spread = 1.0 + np.linspace(-_FINE_SPAN, _FINE_SPAN, _FINE_STEPS)
-    fine = (centres[:, None, :] * spread[None, :, None]).reshape(-1, n_groups)
-    fine = np.concatenate([fine, centres[:1]])  # the coarse best stays a candidate
-    fine_chi2 = _grid_chi2(fine, angle_deg, field_T, values, errors, ids, n_groups, plane)
-    return fine[np.argmin(fine_chi2, axis=0), np.arange(n_groups)]
+    best: list[FloatArray] = []
+    best_chi2: list[FloatArray] = []
+    for side in (np.abs(ratios) <= 1.0, np.abs(ratios) > 1.0):
+        on_side = np.where(side[:, None], chi2, np.inf)
+        centre = coarse[np.argmin(on_side, axis=0), np.arange(n_groups)]
+        fine = np.concatenate([centre[None, :] * spread[:, None], centre[None, :]])
+        fine_chi2 = _grid_chi2(fine, angle_deg, field_T, values, errors, ids, n_groups, plane)
+        index = np.argmin(fine_chi2, axis=0)
+        best.append(fine[index, np.arange(n_groups)])
+        best_chi2.append(fine_chi2[index, np.arange(n_groups)])
+    low_wins = best_chi2[0] <= best_chi2[1]
+    chosen = np.where(low_wins, best[0], best[1])
+    chosen_chi2 = np.minimum(best_chi2[0], best_chi2[1])
+    other_chi2 = np.maximum(best_chi2[0], best_chi2[1])
+    close = np.isfinite(other_chi2) & (
+        other_chi2 - chosen_chi2 < np.maximum(RIVAL_CHI2, 0.2 * chosen_chi2)
+    )
+    rival = np.where(close, np.where(low_wins, best[1], best[0]), np.nan)
+    return chosen, rival
 
 
 def _grid_chi2(
