@@ -216,3 +216,34 @@ def test_a_field_far_below_b_eff_is_said_not_to_determine_the_amr(field_T: float
     points, _ = sweep_points("zx", field_T, 1e-3, seed=3)
     table = build_fits_table(points, RunContext(rotation_plane="zx", **CONTEXT))
     assert "not determined" in fitted(table, "amr_ohm", "vxx")["note"]
+
+
+@pytest.mark.parametrize(
+    ("plane", "quantity", "expected"),
+    [("xy", "amr_plus_smr_ohm", lambda amr, smr: (amr + smr) * 300.0),
+     ("zx", "amr_ohm", lambda amr, smr: amr * 300.0),
+     ("zy", "smr_ohm", lambda amr, smr: smr * 300.0)],
+)
+def test_plane_conventions_from_the_published_forms(plane, quantity, expected) -> None:
+    # McGuire and Potter (1975): rho = rho_perp + (rho_par - rho_perp) cos^2(m, j);
+    # Nakayama et al. (2013): R lowest with m along the spin polarisation y (# from memory).
+    # m along the field (anisotropy held at 0): R = R0 (1 + AMR m_x^2 - SMR m_y^2), and the
+    # Hall R_xy = R_PHE 2 m_x m_y + R_AHE m_z.
+    from acquire.analysis.fit_context import FitOptions
+
+    amr, smr, r_phe, r_ahe = 5e-4, 1e-3, 0.03, 1.2
+    angles = np.arange(0.0, 360.0, 15.0)
+    m = np.array([field_vector(1.0, a, plane) for a in angles])
+    rows = []
+    for channel, value in (("vxx", 300.0 * (1 + amr * m[:, 0] ** 2 - smr * m[:, 1] ** 2)),
+                           ("vxy", r_phe * 2 * m[:, 0] * m[:, 1] + r_ahe * m[:, 2])):
+        rows.append(pd.DataFrame({"point": np.arange(angles.size), "field_T": 1.0,
+                                  "angle_deg": angles, "current_A": 1e-3, "channel": channel,
+                                  "resistance_ohm": value, "resistance_ohm_err": 1e-6,
+                                  "unidirectional_ohm": 0.0, "unidirectional_ohm_err": 1e-6}))
+    table = build_fits_table(pd.concat(rows), RunContext(rotation_plane=plane, **CONTEXT),
+                             FitOptions(anisotropy_T=0.0))
+    assert fitted(table, quantity, "vxx")["value"] == pytest.approx(expected(amr, smr),
+                                                                     rel=1e-6)
+    hall = ("planar_hall_ohm", r_phe) if plane == "xy" else ("anomalous_hall_ohm", r_ahe)
+    assert fitted(table, hall[0], "vxy")["value"] == pytest.approx(hall[1], rel=1e-6)
