@@ -14,6 +14,8 @@ from acquire.analysis.fits import fit_linear_by_group
 TEMPERATURE_QUANTITIES: tuple[str, ...] = (
     "umr_ohm",
     "umr_ratio",
+    "umr_spin_ohm",
+    "umr_thermal_ohm",
     "amr_plus_smr_ohm",
     "amr_plus_smr_ratio",
     "amr_ohm",
