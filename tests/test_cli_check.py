@@ -251,7 +251,8 @@ def test_subprocess_check_ok() -> None:
     done = run_module("check", "protocols/angle_scan.yaml",
                       "--rig", "protocols/rigs/simulated.yaml")
     assert done.returncode == 0, done.stderr
-    assert done.stdout.startswith("ok: ")
+    # The pattern's properties come first; the verdict is the last line.
+    assert done.stdout.strip().splitlines()[-1].startswith("ok: ")
 
 
 def test_subprocess_bad_input_exits_2_with_one_line() -> None:

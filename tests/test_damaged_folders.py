@@ -19,8 +19,8 @@ from tests.conftest import run_cli
 
 ROOT = Path(__file__).resolve().parents[1]
 # protocols/current_ladder.yaml: 16 points, 2 channels; readings rows per point (both channels):
-# 4 cycles x 3 steps ("+0-") x 2 readings per step x 2 channels.
-POINTS, CHANNELS, ROWS_PER_POINT = 16, 2, 4 * 3 * 2 * 2
+# 4 cycles x 6 steps ("+0--0+") x 2 readings per step x 2 channels.
+POINTS, CHANNELS, ROWS_PER_POINT = 16, 2, 4 * 6 * 2 * 2
 KEY = ["point", "attempt", "channel", "cycle", "step", "repeat"]
 
 

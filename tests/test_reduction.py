@@ -6,6 +6,7 @@ from __future__ import annotations
 import numpy as np
 import pandas as pd
 import pytest
+from scipy.stats import t as student_t
 
 from acquire.modes.dc_reversal import POINTS
 from acquire.modes.dc_reversal.reduction import reduce_blocks, reduce_readings
@@ -56,11 +57,15 @@ def independent_reduction(v: np.ndarray, pattern: str, current: float) -> dict[s
         r_cycles.append((r_plus + r_minus) / 2)
         u_cycles.append((r_plus - r_minus) / 2)
     n = len(r_cycles)
+    # The quoted error is the half-width of the two-sided 68.27 % interval of Student's t with
+    # n - 1 degrees of freedom (scipy.stats.t), not the bare standard error.
+    t68 = student_t.ppf(0.5 + 0.682689492137086 / 2, n - 1)
+    has_zero = "0" in pattern
     return {
         "R": float(np.mean(r_cycles)),
-        "R_err": float(np.std(r_cycles, ddof=1) / np.sqrt(n)),
-        "U": float(np.mean(u_cycles)),
-        "U_err": float(np.std(u_cycles, ddof=1) / np.sqrt(n)),
+        "R_err": float(t68 * np.std(r_cycles, ddof=1) / np.sqrt(n)),
+        "U": float(np.mean(u_cycles)) if has_zero else float("nan"),
+        "U_err": float(t68 * np.std(u_cycles, ddof=1) / np.sqrt(n)) if has_zero else float("nan"),
     }
 
 
@@ -74,8 +79,10 @@ def test_matches_independent_numpy_computation(pattern: str) -> None:
     rounding = 1e-12
     assert result.resistance_ohm[0] == pytest.approx(expected["R"], rel=1e-12)
     assert result.resistance_ohm_err[0] == pytest.approx(expected["R_err"], rel=1e-6)
-    assert result.unidirectional_ohm[0] == pytest.approx(expected["U"], abs=rounding)
-    assert result.unidirectional_ohm_err[0] == pytest.approx(expected["U_err"], rel=1e-6)
+    # Without a '0' step the unidirectional part is left empty (it would hold V_off/I).
+    assert result.unidirectional_ohm[0] == pytest.approx(expected["U"], abs=rounding, nan_ok=True)
+    assert result.unidirectional_ohm_err[0] == pytest.approx(expected["U_err"], rel=1e-6,
+                                                             nan_ok=True)
 
 
 def test_zero_step_removes_a_large_thermoelectric_offset() -> None:
@@ -95,9 +102,10 @@ def test_zero_step_removes_a_large_thermoelectric_offset() -> None:
     )
     error = with_zero.unidirectional_ohm_err[0]
     assert abs(with_zero.unidirectional_ohm[0] - truth) < 3 * error
-    # '+-' reads offset/I as unidirectional: a bias of 10x the truth, far outside its error.
-    bias = without_zero.unidirectional_ohm[0] - truth
-    assert bias == pytest.approx(offset / current, rel=0.01)
+    # '+-' would read offset/I as unidirectional (10x the truth): it reports none instead.
+    assert np.isnan(without_zero.unidirectional_ohm[0])
+    assert np.isnan(without_zero.unidirectional_ratio[0])
+    assert without_zero.resistance_ohm[0] == pytest.approx(300.0, rel=1e-6)
     assert abs(with_zero.offset_V[0] - offset) < 3 * with_zero.offset_V_err[0] + 1e-12
 
 

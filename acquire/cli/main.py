@@ -35,8 +35,17 @@ def cmd_check(args: argparse.Namespace) -> int:
         import yaml
 
         print(yaml.safe_dump(normalised_protocol(loaded), sort_keys=False), end="")
+    # What the mode's estimators cancel for this protocol, then the verdict as the last line;
+    # with --show stdout stays the document and its verdict, so these go to stderr.
+    lines, estimator_warnings = loaded.mode.estimator_notes(loaded.protocol)
+    advice = sys.stderr if args.show else sys.stdout
+    if not args.show:
+        for line in lines:
+            print(line)
     for warning in report.warnings:
         print(f"warning: {warning}")
+    for warning in estimator_warnings:
+        print(f"warning: {warning}", file=advice)
     against = f" with rig {rig.rig.name!r}" if rig else " (no rig given: rig limits not checked)"
     print(f"ok: {loaded.path} is valid{against}")
     return EXIT_DONE
@@ -47,6 +56,20 @@ def cmd_estimate(args: argparse.Namespace) -> int:
 
     loaded, rig = _load_pair(args.protocol, args.rig)
     print(render(estimate(loaded, rig), loaded.protocol))
+    return EXIT_DONE
+
+
+def cmd_patterns(args: argparse.Namespace) -> int:
+    from acquire.modes.dc_reversal.pattern_analysis import COMMON_PATTERNS, table_lines
+    from acquire.modes.dc_reversal.reduction import PATTERN_SYMBOLS
+
+    patterns = tuple(args.pattern) or COMMON_PATTERNS
+    for pattern in patterns:
+        if not pattern or set(pattern) - set(PATTERN_SYMBOLS) or \
+                pattern.count("+") != pattern.count("-") or "+" not in pattern:
+            raise InputError(f"pattern {pattern!r}: use '+', '0' and '-' with as many '+' as "
+                             "'-' (at least one of each), e.g. '+0-'")
+    print("\n".join(table_lines(patterns)))
     return EXIT_DONE
 
 
@@ -93,6 +116,7 @@ EXAMPLES: dict[str, str] = {
     "check": f"flipsweep check protocols/angle_scan.yaml --rig {SIM_RIG} --show",
     "estimate": f"flipsweep estimate protocols/angle_scan.yaml --rig {SIM_RIG}",
     "schema": "flipsweep schema --out schemas",
+    "patterns": "flipsweep patterns +0- +0--0+",
     "docs": "flipsweep docs --check docs",
     "run": f"flipsweep run protocols/angle_scan.yaml --rig {SIM_RIG} --simulate --seed 7 "
            "--out runs/demo",
@@ -141,6 +165,12 @@ def build_parser(
     estimate.add_argument("--rig", help="the rig file: its ramp rates, speeds and timings "
                                         "(without it, typical values)")
 
+    patterns = add("patterns", "what alternation patterns cancel: first-order bias of the "
+                               "resistance and unidirectional part to an offset, a voltage drift "
+                               "and a resistance drift, and their noise factors (Markdown table)")
+    patterns.add_argument("pattern", nargs="*",
+                          help="patterns to tabulate, e.g. +0- (default: the common ones)")
+
     schema = add("schema", "JSON Schema of the protocol or rig file, for editors: printed, "
                            "or written with --out")
     schema.add_argument("kind", nargs="?", choices=["protocol", "rig"],
@@ -171,6 +201,7 @@ def _commands() -> dict[str, Callable[[argparse.Namespace], int]]:
         "check": cmd_check,
         "estimate": cmd_estimate,
         "schema": cmd_schema,
+        "patterns": cmd_patterns,
         "docs": cmd_docs,
     }
     from acquire.cli import run_commands, serve

@@ -126,6 +126,11 @@ class AcquisitionMode(ABC):
     def check(self, loaded: Any) -> None:  # noqa: B027 - a mode may have none
         """Semantic checks of the mode's own sections beyond its model (InputError)."""
 
+    def estimator_notes(self, protocol: Any) -> tuple[list[str], list[str]]:
+        """What `check` and `estimate` print about the mode's estimators for this protocol:
+        (lines of information, warnings). None by default."""
+        return [], []
+
     def peak_current(self, protocol: Any, amplitude: float) -> float:
         """The largest instantaneous current of a point at this loop amplitude."""
         return amplitude

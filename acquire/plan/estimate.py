@@ -37,6 +37,7 @@ class Estimate:
     # Precision-targeted cycles: duration_s is the expected night, this the longest one.
     worst_duration_s: float | None = None
     expected_cycles: float | None = None
+    estimator_lines: list[str] = field(default_factory=list)
 
 
 def _axis_moves_s(plans: Sequence[LoopPlan], depth: int,
@@ -154,6 +155,8 @@ def estimate(loaded: LoadedProtocol, rig: LoadedRig | None) -> Estimate:
         readings = round(most_readings * expected / protocol.alternation.max_cycles)
     points_rows = points * len(channels)
     notes = list(limit_report.warnings)
+    estimator_lines, estimator_warnings = mode.estimator_notes(protocol)
+    notes.extend(f"WARNING: {warning}" for warning in estimator_warnings)
     if rig is None:
         notes.append("no rig given: default speeds, NPLC 1 at 50 Hz and 2 ms per transaction")
     return Estimate(
@@ -170,6 +173,7 @@ def estimate(loaded: LoadedProtocol, rig: LoadedRig | None) -> Estimate:
         noise=budget,
         worst_duration_s=worst if expected is not None else None,
         expected_cycles=expected,
+        estimator_lines=estimator_lines,
     )
 
 
@@ -221,5 +225,6 @@ def render(result: Estimate, protocol: Any) -> str:
         lines.extend(render_budget(result.noise))
     if result.advice:
         lines.append(f"faster order  {result.advice}")
+    lines.extend(result.estimator_lines)
     lines.extend(f"note          {note}" for note in result.notes)
     return "\n".join(lines)

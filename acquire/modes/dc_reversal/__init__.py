@@ -31,6 +31,7 @@ from acquire.modes.dc_reversal.budget import (
 )
 from acquire.modes.dc_reversal.cycle_target import POOLED_DOF, CyclePlanner, CycleTarget
 from acquire.modes.dc_reversal.measure import DcReversalMeasurement
+from acquire.modes.dc_reversal.pattern_analysis import analyse_pattern, summary_lines
 from acquire.modes.dc_reversal.reduction import (
     PATTERN_SYMBOLS,
     BlockResult,
@@ -295,6 +296,10 @@ class DcReversal(AcquisitionMode):
     def summary(self, result: BlockResult) -> PointSummary:
         return PointSummary(float(result.resistance_ohm[0]),
                             float(result.unidirectional_ratio[0]))
+
+    def estimator_notes(self, protocol: Any) -> tuple[list[str], list[str]]:
+        pattern = protocol.alternation.pattern
+        return summary_lines(pattern), analyse_pattern(pattern).warnings()
 
     def normalised_sections(self, protocol: Any) -> dict[str, Any]:
         return {
