@@ -19,8 +19,8 @@ from tests.conftest import run_cli
 
 ROOT = Path(__file__).resolve().parents[1]
 # protocols/current_ladder.yaml: 16 points, 2 channels; readings rows per point (both channels):
-# 4 cycles x 6 steps ("+0--0+") x 2 readings per step x 2 channels.
-POINTS, CHANNELS, ROWS_PER_POINT = 16, 2, 4 * 6 * 2 * 2
+# 3 cycles x 6 steps ("+0--0+") x 1 reading per step x 2 channels.
+POINTS, CHANNELS, ROWS_PER_POINT = 16, 2, 3 * 6 * 1 * 2
 KEY = ["point", "attempt", "channel", "cycle", "step", "repeat"]
 
 
@@ -113,7 +113,7 @@ def test_a_write_failing_mid_run_ends_it_properly_and_resume_continues(
     script = f"import sys; open({str(marker)!r}, 'w').write(' '.join(sys.argv[1:]))"
     with open(protocol, "a", encoding="utf-8") as handle:
         handle.write(f"notify: [{sys.executable!r}, -c, {script!r}]\n")
-    failing = failing_disk(monkeypatch, code, text, after_writes=100)  # of the 16 x 12 steps
+    failing = failing_disk(monkeypatch, code, text, after_writes=100)  # of the 16 x 18 steps
     out = tmp_path / "run"
     status_code, _, err = simulate(protocol, rig, out, "--notify")
     assert status_code == 1

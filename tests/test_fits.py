@@ -5,9 +5,12 @@ from __future__ import annotations
 import math
 
 import numpy as np
+import pandas as pd
 import pytest
 from scipy.optimize import curve_fit
+from scipy.stats import chi2
 
+from acquire.analysis.fit_quality import assess
 from acquire.analysis.fits import (
     fit_field_dependence,
     fit_harmonics,
@@ -230,18 +233,36 @@ def test_pooled_errors_weight_every_row_alike() -> None:
     assert pooled.reduced_chi2 == pytest.approx(rss / pooled_sigma**2 / (angle.size - 5))
 
 
-def test_birge_scaled_errors_match_curve_fit_relative_sigma_when_scatter_exceeds_errors():
+def test_errors_are_not_inflated_but_the_option_matches_curve_fit_relative_sigma():
     angle, values, sigma = noisy_sweep(seed=12)
     understated = sigma / 3  # the scatter is three times the stated errors
     fits = fit_harmonics_by_group(angle, values, understated, np.zeros(angle.size, int), 1)
     assert fits.reduced_chi2[0] > 1
-    # Source: scipy.optimize.curve_fit with absolute_sigma=False scales the covariance by
-    # the reduced chi-squared, which is the Birge-scaled error when that exceeds 1.
-    _, covariance = curve_fit(
+    # Source: scipy.optimize.curve_fit with absolute_sigma=True keeps the stated errors ...
+    _, absolute = curve_fit(
+        harmonic_model, angle, values, p0=np.zeros(5), sigma=understated,
+        jac=harmonic_jacobian, absolute_sigma=True, **TIGHT,
+    )  # fmt: skip
+    np.testing.assert_allclose(fits.scaled_errors[0], np.sqrt(np.diag(absolute)), rtol=1e-6)
+    # ... and with absolute_sigma=False scales the covariance by the reduced chi-squared:
+    # the explicit inflation option of fits.csv (fit_quality.assess) must give that.
+    _, relative = curve_fit(
         harmonic_model, angle, values, p0=np.zeros(5), sigma=understated,
         jac=harmonic_jacobian, **TIGHT,
     )  # fmt: skip
-    np.testing.assert_allclose(fits.scaled_errors[0], np.sqrt(np.diag(covariance)), rtol=1e-6)
-    # and a fit whose scatter is within its errors keeps them as they are
-    generous = fit_harmonics_by_group(angle, values, sigma * 3, np.zeros(angle.size, int), 1)
-    np.testing.assert_allclose(generous.scaled_errors, generous.errors)
+    table = pd.DataFrame({
+        "temperature_K": np.nan, "field_T": np.nan, "current_A": np.nan, "angle_deg": np.nan,
+        "channel": "", "analysis": "angle", "quantity": [f"c{i}" for i in range(5)],
+        "value": fits.coefficients[0], "error": fits.errors[0], "unit": "ohm",
+        "reduced_chi2": fits.reduced_chi2[0], "chi2_dof": float(fits.dof[0]), "p_value": np.nan,
+        "n_points": fits.n_points[0], "n_flagged": 0, "model": "", "note": "",
+    })
+    inflated = assess(table, table.iloc[:0], include_flagged=False, inflate_errors=True)
+    np.testing.assert_allclose(inflated["error"], np.sqrt(np.diag(relative)), rtol=1e-6)
+    assert inflated["note"].str.contains("inflated").all()
+    plain = assess(table, table.iloc[:0], include_flagged=False, inflate_errors=False)
+    np.testing.assert_allclose(plain["error"], fits.errors[0])
+    # p-value of the chi^2 (source: scipy.stats.chi2.sf) and the warning it calls for
+    expected_p = chi2.sf(fits.reduced_chi2[0] * fits.dof[0], fits.dof[0])
+    assert plain["p_value"].iloc[0] == pytest.approx(expected_p)
+    assert expected_p < 1e-3 and plain["note"].str.startswith("WARNING").all()

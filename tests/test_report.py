@@ -14,6 +14,7 @@ from pathlib import Path
 import numpy as np
 import pandas as pd
 import pytest
+from scipy.stats import t as student_t
 
 from acquire.analysis import fit_run, report_run
 from acquire.analysis.fit_tables import FIT_COLUMN_NAMES
@@ -96,6 +97,9 @@ def build_synthetic_run(run_dir: Path, run: SyntheticRun) -> Path:
         ratio_err = np.abs(ratio) * np.hypot(
             sample.noise_unidirectional / np.abs(u_meas), sample.noise_resistance / r_meas
         )
+        # points.csv quotes 68.3 % half-widths, Student's t with cycles - 1 dof times the
+        # standard error (scipy.stats.t); the generator's standard error is the true sigma.
+        t68 = float(student_t.ppf(0.5 + 0.682689492137086 / 2, run.cycles - 1))
         point_rows.append(
             pd.DataFrame(
                 {
@@ -109,12 +113,13 @@ def build_synthetic_run(run_dir: Path, run: SyntheticRun) -> Path:
                     else np.nan,
                     "channel": channel,
                     "n_cycles": run.cycles,
+                    "dof": run.cycles - 1,
                     "resistance_ohm": r_meas,
-                    "resistance_ohm_err": sample.noise_resistance,
+                    "resistance_ohm_err": sample.noise_resistance * t68,
                     "unidirectional_ohm": u_meas,
-                    "unidirectional_ohm_err": sample.noise_unidirectional,
+                    "unidirectional_ohm_err": sample.noise_unidirectional * t68,
                     "unidirectional_ratio": ratio,
-                    "unidirectional_ratio_err": ratio_err,
+                    "unidirectional_ratio_err": ratio_err * t68,
                     "offset_V": 2e-6,
                     "offset_V_err": 1e-8,
                     "flags": "",

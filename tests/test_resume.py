@@ -103,7 +103,7 @@ def test_kill_minus_nine_at_random_moments_then_resume(tmp_path: Path) -> None:
         process.send_signal(signal.SIGKILL)
         process.wait()
         assert main(["resume", str(out), "--quiet"]) == 0
-        assert_complete(out, 216, 2, 4 * 6 * 2 * 2)  # cycles x "+0--0+" x per_step x channels
+        assert_complete(out, 216, 2, 3 * 6 * 1 * 2)  # cycles x "+0--0+" x per_step x channels
         got = pd.read_csv(out / "points.csv")[expected.columns]
         pd.testing.assert_frame_equal(got.reset_index(drop=True), expected)
         history = [
@@ -127,7 +127,7 @@ def test_sigint_stops_safely_and_resume_completes(tmp_path: Path) -> None:
     log = (out / "run.log").read_text()
     assert "interrupted" in log
     assert main(["resume", str(out), "--quiet"]) == 0
-    assert_complete(out, 216, 2, 96)
+    assert_complete(out, 216, 2, 36)
 
 
 def test_truncated_last_line_and_partial_point_are_handled(tmp_path: Path) -> None:
@@ -139,7 +139,7 @@ def test_truncated_last_line_and_partial_point_are_handled(tmp_path: Path) -> No
     )
     lines = (out / "readings.csv").read_text().splitlines(keepends=True)
     # Cut the file inside the 10th point's rows, in the middle of a line (a power cut).
-    rows_per_point = 4 * 6 * 2 * 2
+    rows_per_point = 3 * 6 * 1 * 2
     cut = 1 + 9 * rows_per_point + 7
     (out / "readings.csv").write_text("".join(lines[:cut]) + lines[cut][:15])
     # Points reach points.csv after their readings: the cut left the first nine (2 channels).

@@ -47,7 +47,7 @@ def named_amplitudes(
             for quantity, v, e, unit, model in rows:
                 frames.append(tidy_rows(keys[mask], "angle", quantity, v[mask], e[mask], unit,
                                         fit.reduced_chi2[mask], fit.n_points[mask], model,
-                                        notes[mask]))
+                                        notes[mask], fit.dof[mask]))
                 amplitudes[quantity] = np.where(mask, v, np.nan)
                 amplitudes[f"{quantity}_err"] = np.where(mask, e, np.nan)
     return frames, amplitudes

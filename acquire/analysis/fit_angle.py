@@ -127,7 +127,7 @@ def angle_fits(
                   offset_err[has_offset], "deg", resistance.fit.reduced_chi2[has_offset],
                   resistance.fit.n_points[has_offset],
                   "a2 cos 2M + b2 sin 2M = A cos 2(M - M0)",
-                  "+-90 deg ambiguity folded into (-45, 45]")
+                  "+-90 deg ambiguity folded into (-45, 45]", resistance.fit.dof[has_offset])
     )
     named, amplitudes = named_amplitudes(keys, kinds, resistance.fit, unidirectional, plane,
                                          group_notes)
@@ -264,7 +264,7 @@ def _mounting_offsets(
         cos2, sin2, cov[:, 3, 3], cov[:, 4, 4], cov[:, 3, 4], reference_deg=45.0
     )
     usable_hall = ~longitudinal & (plane == "xy")
-    factor = resistance.birge_factor
+    factor = 1.0  # errors are not inflated by the chi^2 (fit_quality)
     offset = np.where(
         longitudinal, from_longitudinal[0], np.where(usable_hall, from_hall[0], np.nan)
     )

@@ -55,6 +55,8 @@ class FitOptions:
     anisotropy_from_hall: bool = False
     dR_dT_ohm_per_K: float | None = None
     heating_warn_K: float = 5.0
+    include_flagged: bool = False  # keep points flagged compliance, instrument_error, ...
+    inflate_errors: bool = False  # scale errors by sqrt(reduced chi^2) where it exceeds 1
 
 
 def read_run_context(run_dir: Path) -> RunContext:

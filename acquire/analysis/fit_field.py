@@ -8,7 +8,6 @@ group). A fit whose fields do not reach well beyond its field scale is flagged.
 
 from __future__ import annotations
 
-import math
 from typing import Any
 
 import numpy as np
@@ -83,8 +82,8 @@ def field_fits(source: AnalysisSource, form: str, plane: str = "xy") -> pd.DataF
     signs = frame["signs"].to_numpy(object)
     left_out = _left_out_counts(prepared)
     collected: dict[str, list[Any]] = {name: [] for name in (
-        "group", "quantity", "value", "error", "unit", "reduced_chi2", "n_points", "model",
-        "note")}
+        "group", "quantity", "value", "error", "unit", "reduced_chi2", "chi2_dof", "n_points",
+        "model", "note")}
     for group in np.flatnonzero(n_fields >= MIN_FIELDS):
         rows = order[bounds[group] : bounds[group + 1]]
         fit = fit_field_dependence(field_T[rows], values[rows], errors[rows], form)
@@ -97,18 +96,16 @@ def field_fits(source: AnalysisSource, form: str, plane: str = "xy") -> pd.DataF
         notes.append(_sign_note(signs[rows], source.from_angle_fits))
         keys = key_frame.iloc[group]
         notes.append(left_out.get(_sequence_key(keys), ""))
-        birge = math.sqrt(fit.reduced_chi2) if fit.reduced_chi2 > 1 else 1.0
         if not fit.weighted:
             notes.append("unweighted: errors from the residual scatter")
-        elif birge > 1:
-            notes.append(f"errors x {birge:.3g} = sqrt(reduced chi2)")
         notes.append(fit.note)
         notes.append(_scale_warning(fit.names, fit.values, field_T[rows]))
-        for name, value, error in zip(fit.names, fit.values, fit.errors * birge):
+        for name, value, error in zip(fit.names, fit.values, fit.errors):
             quantity, unit = FIELD_QUANTITIES[name]
             for column, item in (
                 ("group", group), ("quantity", quantity), ("value", value), ("error", error),
                 ("unit", unit), ("reduced_chi2", fit.reduced_chi2),
+                ("chi2_dof", fit.dof if fit.weighted else np.nan),
                 ("n_points", fit.n_points), ("model", FIELD_FORMS[used_form]),
                 ("note", join_notes(*notes)),
             ):
@@ -116,7 +113,7 @@ def field_fits(source: AnalysisSource, form: str, plane: str = "xy") -> pd.DataF
     if not collected["group"]:
         return empty_fits_table()
     table = key_frame.iloc[collected.pop("group")][list(FIELD_KEYS)].reset_index(drop=True)
-    table = table.assign(analysis="field", **collected)
+    table = table.assign(analysis="field", p_value=np.nan, n_flagged=0, **collected)
     for key in KEY_COLUMNS:
         if key not in table:
             table[key] = np.nan

@@ -108,6 +108,7 @@ def heating_fits(
                 fit.n_points,
                 rise_model,
                 np.array(rise_notes, dtype=object),
+                fit.dof,
             ),
             tidy_rows(
                 keys,
@@ -120,6 +121,7 @@ def heating_fits(
                 fit.n_points,
                 rise_model,
                 np.array(max_notes, dtype=object),
+                fit.dof,
             ),
         ],
         ignore_index=True,

@@ -29,7 +29,15 @@ FIT_COLUMNS: tuple[Column, ...] = (
     Column("error", "double", "", "standard error (one sigma), in the row's unit"),
     Column("unit", "string", "", "unit of value and error"),
     Column("reduced_chi2", "double", "", "chi^2/(n-p) of a weighted fit; empty if unweighted"),
+    Column("chi2_dof", "double", "", "degrees of freedom n - p of that chi^2"),
+    Column("p_value", "double", "",
+           "probability of a chi^2 at least this large if the model and the noise model were "
+           "right (scipy.stats.chi2); below 0.001 the note says the model does not describe "
+           "the data"),
     Column("n_points", "integer", "", "points that entered the fit"),
+    Column("n_flagged", "integer", "",
+           "flagged points (compliance, instrument_error, wait_timeout) of the fit's group: "
+           "left out, or kept and marked in the note with --include-flagged"),
     Column("model", "string", "", "the fitted model"),
     Column("note", "string", "", "context and warnings"),
 )
@@ -48,8 +56,10 @@ def tidy_rows(
     n_points: Any,
     model: str,
     note: Any = "",
+    chi2_dof: Any = np.nan,
 ) -> pd.DataFrame:
-    """One fits.csv row per row of `keys`; key columns absent from `keys` stay empty."""
+    """One fits.csv row per row of `keys`; key columns absent from `keys` stay empty.
+    p_value and n_flagged are filled in for the whole table (fit_quality)."""
     n = len(keys)
     columns: dict[str, Any] = {}
     for key in KEY_COLUMNS:
@@ -68,7 +78,10 @@ def tidy_rows(
         error=np.broadcast_to(np.asarray(error, dtype=float), (n,)),
         unit=unit,
         reduced_chi2=np.broadcast_to(np.asarray(reduced_chi2, dtype=float), (n,)),
+        chi2_dof=np.broadcast_to(np.asarray(chi2_dof, dtype=float), (n,)),
+        p_value=np.nan,
         n_points=np.broadcast_to(np.asarray(n_points, dtype=np.int64), (n,)),
+        n_flagged=0,
         model=model,
         note=np.broadcast_to(np.asarray(note, dtype=object), (n,)),
     )
@@ -80,7 +93,7 @@ def empty_fits_table() -> pd.DataFrame:
 
 
 def _dtype(name: str) -> str:
-    if name == "n_points":
+    if name in ("n_points", "n_flagged"):
         return "int64"
     if name in ("channel", "branch", "analysis", "quantity", "unit", "model", "note"):
         return "object"
@@ -112,18 +125,13 @@ def coefficient_rows(
         fit.n_points,
         model,
         fit_note(fit) if note is None else note,
+        fit.dof,
     )
 
 
 def fit_note(fit: GroupedLinearFit) -> NDArray[np.object_]:
-    """How each group's errors were obtained or scaled, or why the group was not fitted."""
-    factor = fit.birge_factor
-    scaled = np.char.mod("errors x %.3g = sqrt(reduced chi2)", factor)
-    notes = np.where(
-        fit.weighted,
-        np.where(factor > 1, scaled, ""),
-        "unweighted: errors from the residual scatter",
-    )
+    """How each group's errors were obtained, or why the group was not fitted."""
+    notes = np.where(fit.weighted, "", "unweighted: errors from the residual scatter")
     failed = ~np.isfinite(fit.coefficients[:, 0])
     not_fitted = "not fitted: the points do not determine the model (too few distinct values)"
     return np.where(failed, not_fitted, notes).astype(object)

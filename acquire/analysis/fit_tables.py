@@ -12,7 +12,9 @@ fits.csv has one row per fitted quantity and group:
     unit          unit of value and error
     reduced_chi2  chi^2/(n - p) of a weighted fit; empty for an unweighted fit (its errors
                   come from the residual scatter) or when there is no degree of freedom
+    chi2_dof      n - p;  p_value  the chance of so large a chi^2 if the model were right
     n_points      points that entered the fit
+    n_flagged     flagged points of the group, left out (or kept with include_flagged)
     model         the fitted model as a formula
     note          context and warnings (a row whose note starts with WARNING needs a look)
 
@@ -40,6 +42,8 @@ from acquire.analysis.fit_current import current_fits
 from acquire.analysis.fit_field import field_fits
 from acquire.analysis.fit_groups import group_ids
 from acquire.analysis.fit_heating import heating_fits
+from acquire.analysis.fit_noise import pooled_errors, select_points
+from acquire.analysis.fit_quality import assess
 from acquire.analysis.fit_rows import FIT_COLUMN_NAMES, FIT_COLUMNS, empty_fits_table
 from acquire.analysis.fit_source import analysis_source
 from acquire.analysis.fit_temperature import temperature_fits
@@ -76,6 +80,7 @@ QUANTITY_NOTES: dict[str, str] = {
     "umr_field_slope_ohm_per_T": "linear form: slope of UMR against |B|",
     "dR_dT_ohm_per_K": "local slope of the lowest-current resistance against temperature",
     "heating_slope_ohm_per_mA2": "h in R = R0 + h*I^2",
+    "(weights)": "the pooled noise model of fit_noise: per (channel, temperature), s/I",
     "temperature_rise_K_per_mA2": "h/(dR/dT)",
     "temperature_rise_at_max_current_K": "h*I_max^2/(dR/dT); note WARNING above the limit",
 }
@@ -98,7 +103,8 @@ def build_fits_table(
 ) -> pd.DataFrame:
     """Every analysis the data support, as one tidy table (columns FIT_COLUMN_NAMES)."""
     options = options or FitOptions()
-    points = normalise_points(points)
+    selection = select_points(normalise_points(points), options.include_flagged)
+    points = pooled_errors(selection.used)
     angle = angle_fits(points, context, options.angle_offset, options.anisotropy_T,
                        options.anisotropy_from_hall)
     source = analysis_source(points, angle.amplitudes, context)
@@ -114,5 +120,14 @@ def build_fits_table(
     if not frames:
         return empty_fits_table()
     table = pd.concat(frames, ignore_index=True)[list(FIT_COLUMN_NAMES)]
-    table["n_points"] = table["n_points"].astype(np.int64)
-    return table
+    table = drop_empty_fits(table)
+    table = assess(table, selection.flagged, options.include_flagged, options.inflate_errors)
+    for name in ("n_points", "n_flagged"):
+        table[name] = table[name].astype(np.int64)
+    return table[list(FIT_COLUMN_NAMES)]
+
+
+def drop_empty_fits(table: pd.DataFrame) -> pd.DataFrame:
+    """Rows of fits no point entered (the unidirectional part of a pattern without a '0'
+    step is empty): no row rather than a row of NaN."""
+    return table[table["n_points"].to_numpy() > 0].reset_index(drop=True)

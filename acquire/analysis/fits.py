@@ -4,7 +4,7 @@ Everything here takes and returns numpy arrays and SI floats. The grouped least-
 solver is the workhorse: it fits one linear model to many groups at once (a night's run has
 thousands of angle sweeps), so no Python loop ever runs over rows or groups.
 
-Error convention used throughout:
+Error convention used throughout (the weights come from the noise model, fit_noise):
 
 - weighted fit (every point of a group has a finite, positive error): the errors are taken
   as absolute standard deviations; parameter errors are sqrt(diag((A^T W A)^-1)) with
@@ -65,6 +65,11 @@ class GroupedLinearFit:
         return np.sqrt(np.diagonal(self.covariance, axis1=1, axis2=2))
 
     @property
+    def dof(self) -> NDArray[np.int64]:
+        """Degrees of freedom of each group's chi^2: points - parameters."""
+        return (self.n_points - self.coefficients.shape[1]).astype(np.int64)
+
+    @property
     def birge_factor(self) -> FloatArray:
         """sqrt(reduced chi^2) where it exceeds 1, else 1 (and 1 for unweighted groups)."""
         with np.errstate(invalid="ignore"):
@@ -72,10 +77,11 @@ class GroupedLinearFit:
 
     @property
     def scaled_errors(self) -> FloatArray:
-        """Errors inflated by the Birge factor: a weighted fit whose scatter exceeds its
-        errors reports the scatter instead (common practice when the input errors are
-        themselves estimates, as standard errors over a few cycles are)."""
-        return self.errors * self.birge_factor[:, None]
+        """The errors the fits report: from the noise model, never inflated here. A model
+        that misses a term shows in the reduced chi^2 and its p-value instead; inflating by
+        sqrt(reduced chi^2) is an explicit option applied to fits.csv as a whole
+        (fit_quality)."""
+        return self.errors
 
     def group(self, index: int) -> LinearFit:
         return LinearFit(
@@ -291,6 +297,10 @@ class CurveFit:
     n_points: int
     weighted: bool
     note: str = ""
+
+    @property
+    def dof(self) -> int:
+        return self.n_points - len(self.names)
 
 
 def fit_field_dependence(

@@ -41,6 +41,8 @@ def fit_run(
     heating_warn_K: float = 5.0,
     anisotropy_T: float | None = None,
     anisotropy_from_hall: bool = False,
+    include_flagged: bool = False,
+    inflate_errors: bool = False,
 ) -> Path:
     """Fit the run's points; write run_dir/fits.csv and its CSVW metadata; return fits.csv.
 
@@ -51,6 +53,10 @@ def fit_run(
     anisotropy_T: the rotation plane's anisotropy field held fixed in the angle fits (B_k in
     xy, B_eff in zx/zy); None fits it from each sweep. anisotropy_from_hall (zx, zy): each
     longitudinal sweep takes B_eff from the transverse sweep measured with it.
+    include_flagged: keep points flagged compliance, instrument_error or wait_timeout (left
+    out by default; fits.csv counts them either way). inflate_errors: multiply errors by
+    sqrt(reduced chi^2) where it exceeds 1 (off by default: the chi^2 and its p-value say
+    whether the model describes the data).
     """
     run_dir = Path(run_dir)
     if field_form not in FIELD_FORMS:
@@ -65,6 +71,8 @@ def fit_run(
         heating_warn_K=heating_warn_K,
         anisotropy_T=anisotropy_T,
         anisotropy_from_hall=anisotropy_from_hall,
+        include_flagged=include_flagged,
+        inflate_errors=inflate_errors,
     )
     table = build_fits_table(read_points(points_path), read_run_context(run_dir), options)
     target = run_dir / "fits.csv"

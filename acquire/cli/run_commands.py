@@ -92,7 +92,8 @@ def cmd_fit(args: argparse.Namespace) -> int:
     path = fit_run(_with_points(args.dir), angle_offset=args.angle_offset,
                    field_form=args.field_form, dR_dT_ohm_per_K=args.dr_dt,
                    heating_warn_K=args.heating_warn, anisotropy_T=args.anisotropy,
-                   anisotropy_from_hall=args.anisotropy_from_hall)
+                   anisotropy_from_hall=args.anisotropy_from_hall,
+                   include_flagged=args.include_flagged, inflate_errors=args.inflate_errors)
     for line in fit_summary(read_fits_table(path)):
         print(line)
     print(f"wrote {path}")
@@ -187,6 +188,15 @@ def _dir_command(name: str, text: str) -> Callable[[AddCommand], None]:
                 "--heating-warn", type=float, default=5.0, metavar="K",
                 help="flag a Joule temperature rise at the largest current above this many "
                      "kelvin (default: 5)")
+            command.add_argument(
+                "--include-flagged", action="store_true",
+                help="keep points flagged compliance, instrument_error or wait_timeout in the "
+                     "fits (left out by default); fits.csv counts them in n_flagged either way")
+            command.add_argument(
+                "--inflate-errors", action="store_true",
+                help="multiply each error by sqrt(reduced chi^2) where it exceeds 1 (off by "
+                     "default: an improbable chi^2 is reported as a model that does not "
+                     "describe the data)")
     return add_arguments
 
 

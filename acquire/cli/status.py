@@ -12,7 +12,7 @@ from datetime import datetime, timezone
 from pathlib import Path
 from typing import Any
 
-from acquire.runtime.progress import HEARTBEAT_S
+from acquire.runtime.progress import HEARTBEAT_S, ratio_text
 from acquire.store.run_folder import RunFolder
 
 # A live run rewrites status.json at least every HEARTBEAT_S; three missed beats is no slip.
@@ -73,8 +73,10 @@ def show_status(path: Path) -> int:
         print(f"heartbeat  {age:.0f} s ago (pid {status.get('pid')} on {status.get('host')})")
     last = status.get("last_point") or {}
     if last:
+        shown = ratio_text(last.get("unidirectional_ratio_ppm"),
+                           last.get("unidirectional_ratio_err_ppm"), last.get("dof"))
         print(f"last point {last['point']}: R = {last['resistance_ohm']:.6g} ohm, "
-              f"unidirectional {last['unidirectional_ratio_ppm']:+.3f} ppm"
+              f"unidirectional {shown}"
               + (f", flags {last['flags']}" if last.get("flags") else ""))
     return 0
 

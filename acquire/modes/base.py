@@ -33,7 +33,9 @@ class PointSummary:
     """What the progress line, status.json and the sweep log show of a point (first channel)."""
 
     resistance_ohm: float
-    unidirectional_ratio: float
+    unidirectional_ratio: float  # NaN when the mode gives none (no zero step)
+    unidirectional_ratio_err: float = float("nan")  # half-width of the 68.3 % interval
+    dof: int | None = None  # degrees of freedom of that error
 
 
 @dataclass

@@ -3,6 +3,7 @@ estimate until the measured pace is known), and status.json."""
 
 from __future__ import annotations
 
+import math
 import time
 from dataclasses import dataclass, field
 from typing import Any
@@ -89,15 +90,17 @@ class Progress:
                 "point": outcome.point.number,
                 "current_A": outcome.point.current_A,
                 "resistance_ohm": shown.resistance_ohm,
-                "unidirectional_ratio_ppm": shown.unidirectional_ratio * 1e6,
+                "unidirectional_ratio_ppm": _finite_or_none(shown.unidirectional_ratio * 1e6),
+                "unidirectional_ratio_err_ppm":
+                    _finite_or_none(shown.unidirectional_ratio_err * 1e6),
+                "dof": shown.dof,
                 "flags": outcome.flags,
             }
         if self._bar is not None:
             self._bar.n = self.done
             if shown is not None:
                 self._bar.set_postfix_str(
-                    f"R={shown.resistance_ohm:.5g} ohm, "
-                    f"uni={shown.unidirectional_ratio * 1e6:+.2f} ppm, "
+                    f"R={shown.resistance_ohm:.5g} ohm, uni={unidirectional_text(shown)}, "
                     f"ETA {format_eta(self.eta_s())}", refresh=False,
                 )
             self._bar.set_description_str(self.current_activity, refresh=False)
@@ -136,3 +139,21 @@ def format_eta(seconds: float) -> str:
     minutes, secs = divmod(int(seconds), 60)
     hours, minutes = divmod(minutes, 60)
     return f"{hours}:{minutes:02d}:{secs:02d}"
+
+
+def _finite_or_none(value: float) -> float | None:
+    return value if math.isfinite(value) else None
+
+
+def unidirectional_text(shown: PointSummary) -> str:
+    """The unidirectional ratio with its 68.3 % error and the error's degrees of freedom."""
+    return ratio_text(shown.unidirectional_ratio * 1e6, shown.unidirectional_ratio_err * 1e6,
+                      shown.dof)
+
+
+def ratio_text(ppm: float | None, err_ppm: float | None, dof: int | None) -> str:
+    if ppm is None or not math.isfinite(ppm):
+        return "none (no '0' step)"
+    if err_ppm is None or not math.isfinite(err_ppm) or not dof:
+        return f"{ppm:+.2f} ppm"
+    return f"{ppm:+.2f} ± {err_ppm:.2f} ppm (68 %, t with {dof} dof)"

@@ -33,7 +33,7 @@ class SweepLog:
             return
         if self.rows:
             resistances = [r for r, _ in self.rows]
-            ratios = [u * 1e6 for _, u in self.rows]
+            ratios = [u * 1e6 for _, u in self.rows if u == u] or [float("nan")]  # NaN: none
             count = len(self.rows)
             log.info(
                 "sweep %d (from point %d): %d point%s, R %.6g..%.6g ohm, "

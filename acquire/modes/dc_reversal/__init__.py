@@ -7,6 +7,7 @@ measure.py (runner-side), the reduction in reduction.py (pure).
 
 from __future__ import annotations
 
+import dataclasses
 from collections.abc import Sequence
 from typing import Annotated, Any, Literal
 
@@ -30,7 +31,7 @@ from acquire.modes.dc_reversal.budget import (
     target_channel,
 )
 from acquire.modes.dc_reversal.cycle_target import POOLED_DOF, CyclePlanner, CycleTarget
-from acquire.modes.dc_reversal.measure import DcReversalMeasurement
+from acquire.modes.dc_reversal.measure import DcReversalMeasurement, RawPoint
 from acquire.modes.dc_reversal.pattern_analysis import analyse_pattern, summary_lines
 from acquire.modes.dc_reversal.reduction import (
     PATTERN_SYMBOLS,
@@ -159,6 +160,11 @@ READINGS = TableSchema(
     ),
 )
 
+ERROR_MEANING = (
+    "half-width of the 68.3 % interval of the mean: Student's t with `dof` degrees of freedom "
+    "times the standard error over cycles (t = 1.20 at 4 cycles, 1.03 at 16)"
+)
+
 POINTS = TableSchema(
     "points.csv",
     "one row per (point, channel)",
@@ -171,14 +177,20 @@ POINTS = TableSchema(
         Column("channel", "string", "", "voltmeter name"),
         Column("n_cycles", "integer", "",
                "cycles averaged (precision-targeted cycles: what the point used)"),
+        Column("dof", "integer", "",
+               "degrees of freedom of the row's errors: n_cycles - 1 (each error is from the "
+               "scatter of the per-cycle values)"),
         Column("resistance_ohm", "double", "ohm", "(V+ - V-)/(2I), mean over cycles"),
-        Column("resistance_ohm_err", "double", "ohm", "standard error over cycles"),
-        Column("unidirectional_ohm", "double", "ohm", "(V+ + V- - 2V0)/(2I), mean over cycles"),
-        Column("unidirectional_ohm_err", "double", "ohm", "standard error over cycles"),
+        Column("resistance_ohm_err", "double", "ohm", ERROR_MEANING),
+        Column("unidirectional_ohm", "double", "ohm",
+               "(V+ + V- - 2V0)/(2I), mean over cycles; empty when the pattern has no '0' step"),
+        Column("unidirectional_ohm_err", "double", "ohm", ERROR_MEANING),
         Column("unidirectional_ratio", "double", "1", "unidirectional_ohm / resistance_ohm"),
-        Column("unidirectional_ratio_err", "double", "1", "propagated standard error"),
+        Column("unidirectional_ratio_err", "double", "1",
+               "propagated from the two errors above (same coverage)"),
         Column("offset_V", "double", "V", "zero-current reading (thermoelectric offset)"),
-        Column("offset_V_err", "double", "V", "standard error over cycles"),
+        Column("offset_V_err", "double", "V", ERROR_MEANING),
+        *readback_columns("mean over the point's steps (empty when not read back)"),
         Column("flags", "string", "", "'|'-separated flags of the point's readings"),
     ),
 )
@@ -276,6 +288,9 @@ class DcReversal(AcquisitionMode):
 
     def reduce_point(self, protocol: Any, point: Point, raw: Any) -> BlockResult:
         amplitude = np.full(len(protocol.readings.channels), point.current_A)
+        if isinstance(raw, RawPoint):
+            result = reduce_blocks(raw.voltages, protocol.alternation.pattern, amplitude)
+            return dataclasses.replace(result, readback_means=raw.readback_means)
         return reduce_blocks(raw, protocol.alternation.pattern, amplitude)
 
     def point_rows(self, protocol: Any, point: Point, result: BlockResult, flags: str,
@@ -283,19 +298,23 @@ class DcReversal(AcquisitionMode):
         used = {loop.axis for loop in protocol.loops}
         setpoints = tuple(value if axis in used else None
                           for axis, value in zip(movable_axis_names(), point.setpoints))
+        n_axes = len(movable_axis_names())
+        readbacks = tuple(result.readback_means) or (None,) * n_axes
         rows = []
         for index, channel in enumerate(protocol.readings.channels):
             rows.append((
                 point.number, *setpoints, point.current_A, point.current_A * density_per_ampere,
-                channel, result.n_cycles,
+                channel, result.n_cycles, result.dof,
                 *(float(getattr(result, name)[index]) for name in POINT_VALUES),
+                *readbacks,
                 flags,
             ))
         return rows
 
     def summary(self, result: BlockResult) -> PointSummary:
         return PointSummary(float(result.resistance_ohm[0]),
-                            float(result.unidirectional_ratio[0]))
+                            float(result.unidirectional_ratio[0]),
+                            float(result.unidirectional_ratio_err[0]), result.dof)
 
     def estimator_notes(self, protocol: Any) -> tuple[list[str], list[str]]:
         pattern = protocol.alternation.pattern

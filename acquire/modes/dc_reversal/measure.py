@@ -11,6 +11,7 @@ flagged `retry`.
 
 from __future__ import annotations
 
+from dataclasses import dataclass
 from typing import Any
 
 import numpy as np
@@ -20,6 +21,25 @@ from acquire.modes.dc_reversal.cycle_target import CyclePlanner
 from acquire.plan.schedule import Point, movable_axis_names
 from acquire.store.append_table import format_cell
 from drivers.roles import current_source, voltmeter
+
+
+@dataclass(frozen=True)
+class RawPoint:
+    """A point's readings: voltages[channel, cycle, step, repeat] and the mean readback of
+    each movable axis over its steps (None for an axis not read back)."""
+
+    voltages: np.ndarray
+    readback_means: tuple[float | None, ...]
+
+
+def mean_readbacks(taken: list[tuple[float | None, ...]]) -> tuple[float | None, ...]:
+    if not taken:
+        return ()
+    means: list[float | None] = []
+    for values in zip(*taken):
+        numbers = [value for value in values if value is not None]
+        means.append(sum(numbers) / len(numbers) if numbers else None)
+    return tuple(means)
 
 
 class DcReversalMeasurement(PointMeasurement):
@@ -62,7 +82,7 @@ class DcReversalMeasurement(PointMeasurement):
     def rest(self) -> None:
         self.source.set_current(0.0)
 
-    def measure(self, point: Point, attempt: int, flags: str) -> np.ndarray:
+    def measure(self, point: Point, attempt: int, flags: str) -> RawPoint:
         alternation, per_step, clock = self.alternation, self.per_step, self.context.clock
         source, meters = self.source, self.meters
         cycles = self.cycles_for(point)
@@ -81,13 +101,16 @@ class DcReversalMeasurement(PointMeasurement):
         readings = self.readings
         # Rows are formatted here, in one f-string each: this loop runs for every reading.
         self.tripped = False
+        taken: list[tuple[float | None, ...]] = []
         for cycle in range(cycles):
             for step_index, polarity in enumerate(self.polarities):
                 lines = []
                 current = polarity * point.current_A
                 source.set_current(current)
                 clock.sleep(alternation.settle)
-                readbacks = ",".join(map(format_cell, self.context.readbacks()))
+                step_readbacks = self.context.readbacks()
+                taken.append(step_readbacks)
+                readbacks = ",".join(map(format_cell, step_readbacks))
                 self.context.heartbeat()
                 head = f"{point.number},{attempt},{cycle},{step_index},"
                 middle = f"{setpoints},{current!r},{polarity},"
@@ -107,7 +130,7 @@ class DcReversalMeasurement(PointMeasurement):
                 readings.write_lines(lines)
                 readings.flush_if_due(clock.now())
         source.set_current(0.0)
-        return voltages
+        return RawPoint(voltages, mean_readbacks(taken))
 
     def check(self) -> None:
         if self.tripped:

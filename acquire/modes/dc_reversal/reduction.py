@@ -26,7 +26,7 @@ import numpy as np
 import pandas as pd
 from scipy.stats import t as student_t
 
-from acquire.store.tables import setpoint_columns
+from acquire.store.tables import readback_columns, setpoint_columns
 
 PATTERN_SYMBOLS = {"+": 1, "0": 0, "-": -1}
 
@@ -47,6 +47,8 @@ class BlockResult:
     unidirectional_ratio_err: np.ndarray
     offset_V: np.ndarray
     offset_V_err: np.ndarray
+    # The point's mean readback per movable axis (live reduction only; None: not read back).
+    readback_means: tuple[float | None, ...] = ()
 
     @property
     def dof(self) -> int:
@@ -135,6 +137,20 @@ def reduce_blocks(voltages: np.ndarray, pattern: str, current_A: np.ndarray) -> 
     )
 
 
+def _mean_readbacks(selected: pd.DataFrame, keys: pd.Index) -> dict[str, np.ndarray]:
+    """Mean of each axis's readback over a block's rows (empty where none was read)."""
+    means = {}
+    for column in readback_columns(""):
+        if column.name in selected:
+            values = pd.to_numeric(selected[column.name], errors="coerce")
+            means[column.name] = (
+                values.groupby(level=[0, 1], sort=False).mean().reindex(keys).to_numpy()
+            )
+        else:
+            means[column.name] = np.full(len(keys), np.nan)
+    return means
+
+
 def _join_flags(flags: pd.Series, keys: pd.DataFrame) -> pd.Series:
     """'|'-joined distinct flags per (point, channel); most groups have none."""
     present = flags.fillna("").astype(str)
@@ -179,6 +195,7 @@ def reduce_readings(
         )
         result = reduce_blocks(voltages, pattern, amplitude.to_numpy())
         setpoints = {column.name: first[column.name].to_numpy() for column in setpoint_columns()}
+        readbacks = _mean_readbacks(selected, keys)
         table = pd.DataFrame(
             {
                 "point": keys.get_level_values(0),
@@ -187,6 +204,7 @@ def reduce_readings(
                 "current_density_A_m2": amplitude.to_numpy() * density_per_ampere,
                 "channel": keys.get_level_values(1),
                 "n_cycles": int(n_cycles),
+                "dof": int(n_cycles) - 1,
                 "resistance_ohm": result.resistance_ohm,
                 "resistance_ohm_err": result.resistance_ohm_err,
                 "unidirectional_ohm": result.unidirectional_ohm,
@@ -195,6 +213,7 @@ def reduce_readings(
                 "unidirectional_ratio_err": result.unidirectional_ratio_err,
                 "offset_V": result.offset_V,
                 "offset_V_err": result.offset_V_err,
+                **readbacks,
             }
         )
         rows.append(table)
