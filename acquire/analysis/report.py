@@ -15,6 +15,7 @@ import pandas as pd
 
 from acquire.analysis.figures import FigureOutcome
 from acquire.analysis.fit_tables import RunContext
+from acquire.analysis.report_data import DataUsed, flagged_points_html, provenance_html
 
 # (analysis, quantity, heading, display factor, display unit): the numbers a reader wants first.
 SUMMARY_QUANTITIES: tuple[tuple[str, str, str, float, str], ...] = (
@@ -65,6 +66,7 @@ def render_report(
     points: pd.DataFrame,
     fits: pd.DataFrame,
     figures: Iterable[FigureOutcome],
+    used: DataUsed | None = None,
 ) -> str:
     title = context.name or "flipsweep run"
     parts = [
@@ -73,7 +75,9 @@ def render_report(
         f"<title>{_text(title)}</title><style>{STYLE}</style></head><body>",
         f"<h1>{_text(title)}</h1>",
         _facts(context, points, fits),
+        provenance_html(used, fits),
         _warnings(fits),
+        flagged_points_html(points),
         "<h2>Main fitted quantities</h2>",
         _summary_table(fits),
         "<p>Every fitted number, with its model, reduced χ² and notes, is in "

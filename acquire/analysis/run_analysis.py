@@ -7,6 +7,7 @@ never touch an instrument, so they can run while a run is still going or on a co
 from __future__ import annotations
 
 import os
+from datetime import datetime, timezone
 from pathlib import Path
 
 import pandas as pd
@@ -21,6 +22,7 @@ from acquire.analysis.fit_tables import (
     read_points,
     read_run_context,
 )
+from acquire.analysis.report_data import DataUsed
 from acquire.store.csvw import write_metadata
 
 FITS_DESCRIPTION = (
@@ -81,26 +83,48 @@ def fit_run(
     return target
 
 
+def fits_are_stale(run_dir: Path) -> bool:
+    """fits.csv missing, or older than points.csv (a resume or a reduce came after it)."""
+    fits_path, points_path = Path(run_dir) / "fits.csv", Path(run_dir) / "points.csv"
+    if not fits_path.exists():
+        return True
+    return points_path.stat().st_mtime_ns > fits_path.stat().st_mtime_ns
+
+
 def report_run(run_dir: Path) -> Path:
-    """Write run_dir/figures/*.png and run_dir/report.html; fit first if fits.csv is missing."""
+    """Write run_dir/figures/*.png and run_dir/report.html; fit first (with the default
+    options) if fits.csv is missing or older than points.csv, so the page never shows fits
+    of fewer points than it lists."""
     # Imported here so that fitting never needs the report's modules (or matplotlib).
     from acquire.analysis.figures import make_figures
     from acquire.analysis.report import render_report
 
     run_dir = Path(run_dir)
     fits_path = run_dir / "fits.csv"
-    if not fits_path.exists():
+    refitted = fits_are_stale(run_dir)
+    if refitted:
         fit_run(run_dir)
     fits = read_fits_table(fits_path)
     points = read_points(run_dir / "points.csv")
     context = read_run_context(run_dir)
     figures = make_figures(run_dir, points, fits, context)
-    page = render_report(context, points, fits, figures)
+    provenance = DataUsed(
+        points_rows=len(points),
+        points_modified=_modified(run_dir / "points.csv"),
+        fits_modified=_modified(fits_path),
+        refitted=refitted,
+    )
+    page = render_report(context, points, fits, figures, provenance)
     target = run_dir / "report.html"
     temporary = target.with_name(target.name + ".tmp")
     temporary.write_text(page, encoding="utf-8")
     os.replace(temporary, target)
     return target
+
+
+def _modified(path: Path) -> str:
+    stamp = datetime.fromtimestamp(path.stat().st_mtime, tz=timezone.utc)
+    return stamp.strftime("%Y-%m-%d %H:%M:%S UTC")
 
 
 def _write_csv_atomically(table: pd.DataFrame, target: Path) -> None:
