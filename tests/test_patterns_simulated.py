@@ -97,3 +97,26 @@ def test_symmetric_pattern_cancels_a_linear_drift(tmp_path: Path) -> None:
     for bias, error, _ in found["+-"]:
         # V- is read one step after V+: R is low by drift x (step time) / (2 I).
         assert bias < 0 and abs(bias) > 10 * error
+
+
+def test_the_demo_field_loop_reports_no_offset_as_unidirectional(tmp_path: Path) -> None:
+    from acquire.analysis import fit_run
+
+    out = tmp_path / "mr"
+    protocol = ROOT / "protocols" / "mr_loop.yaml"
+    assert main(["run", str(protocol), "--rig", str(RIG), "--simulate", "--seed", "7",
+                 "--out", str(out), "--quiet"]) == 0
+    fits = pd.read_csv(fit_run(out))
+    model = truth_model(protocol, out)
+    model.apply_field(0.04, 20.0)  # the loop's largest field, at its angle
+    truth = model.expected("longitudinal", 1e-3, 300.0).unidirectional_ohm
+    offset_over_current = 10e-6 / 1e-3  # what '+-' reported as UMR: V_off/I = 10 mOhm
+    rows = fits[(fits["quantity"] == "umr_field_independent_ohm") & (fits["channel"] == "vxx")]
+    assert len(rows) == 2  # the positive and the negative branch
+    for row in rows.itertuples():
+        # The high-field part is the UMR at saturation, odd in the field: +-truth within
+        # 3 sigma (the inverse form's A is the |B| -> infinity limit; at 40 mT the field-
+        # dependent part has decayed to below its error here), nowhere near V_off/I.
+        sign = -1.0 if "negative fields" in row.note else 1.0
+        assert abs(row.value - sign * truth) < 3 * row.error, (row.value, row.error, truth)
+        assert abs(row.value) < 0.1 * offset_over_current
