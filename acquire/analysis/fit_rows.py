@@ -26,7 +26,9 @@ FIT_COLUMNS: tuple[Column, ...] = (
     Column("analysis", "string", "", "angle, current, field, temperature or heating"),
     Column("quantity", "string", "", "name of the fitted quantity"),
     Column("value", "double", "", "fitted value, in the row's unit"),
-    Column("error", "double", "", "standard error (one sigma), in the row's unit"),
+    Column("error", "double", "",
+           "one-sigma error from the pooled noise model, in the row's unit (not scaled by "
+           "the chi^2 unless fitted with --inflate-errors)"),
     Column("unit", "string", "", "unit of value and error"),
     Column("reduced_chi2", "double", "", "chi^2/(n-p) of a weighted fit; empty if unweighted"),
     Column("chi2_dof", "double", "", "degrees of freedom n - p of that chi^2"),
