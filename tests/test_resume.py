@@ -174,7 +174,7 @@ def test_resume_refuses_a_changed_protocol(
         == 0
     )
     base = folder / "base.yaml"
-    base.write_text(base.read_text().replace("cycles: 4", "cycles: 5"))
+    base.write_text(base.read_text().replace("cycles: 3", "cycles: 5"))
     capsys.readouterr()
     assert main(["resume", str(out), "--quiet"]) == 2
     error = capsys.readouterr().err

@@ -18,6 +18,7 @@ import numpy as np
 
 from acquire.modes.base import MeasureContext, PointMeasurement, PointProblem
 from acquire.modes.dc_reversal.cycle_target import CyclePlanner
+from acquire.modes.dc_reversal.reduction import mean_over_steps
 from acquire.plan.schedule import Point, movable_axis_names
 from acquire.store.append_table import format_cell
 from drivers.roles import current_source, voltmeter
@@ -33,13 +34,11 @@ class RawPoint:
 
 
 def mean_readbacks(taken: list[tuple[float | None, ...]]) -> tuple[float | None, ...]:
+    """Each axis's mean readback over the steps (None where never read)."""
     if not taken:
         return ()
-    means: list[float | None] = []
-    for values in zip(*taken):
-        numbers = [value for value in values if value is not None]
-        means.append(sum(numbers) / len(numbers) if numbers else None)
-    return tuple(means)
+    per_axis = np.array([[np.nan if v is None else v for v in step] for step in taken]).T
+    return tuple(None if np.isnan(mean) else float(mean) for mean in mean_over_steps(per_axis))
 
 
 class DcReversalMeasurement(PointMeasurement):

@@ -137,15 +137,28 @@ def reduce_blocks(voltages: np.ndarray, pattern: str, current_A: np.ndarray) -> 
     )
 
 
-def _mean_readbacks(selected: pd.DataFrame, keys: pd.Index) -> dict[str, np.ndarray]:
-    """Mean of each axis's readback over a block's rows (empty where none was read)."""
+def mean_over_steps(per_step: np.ndarray) -> np.ndarray:
+    """Mean readback over the steps of each block: per_step[G, steps in time order], NaN
+    where not read. One function for the live point and `reduce`, so they agree bit for bit."""
+    # Contiguous rows: numpy then sums each row in the same order whatever the caller's layout.
+    values = np.ascontiguousarray(per_step, dtype=float)
+    read = np.isfinite(values)
+    count = read.sum(axis=1)
+    total = np.where(read, values, 0.0).sum(axis=1)
+    with np.errstate(invalid="ignore", divide="ignore"):
+        return np.where(count > 0, total / np.maximum(count, 1), np.nan)
+
+
+def _mean_readbacks(selected: pd.DataFrame, keys: pd.Index, n_cycles: int, steps: int,
+                    repeats: int) -> dict[str, np.ndarray]:
+    """Mean of each axis's readback over a block's steps (empty where none was read); the
+    rows are sorted by cycle, step and repeat, and every repeat of a step has its readback."""
     means = {}
     for column in readback_columns(""):
         if column.name in selected:
-            values = pd.to_numeric(selected[column.name], errors="coerce")
-            means[column.name] = (
-                values.groupby(level=[0, 1], sort=False).mean().reindex(keys).to_numpy()
-            )
+            values = pd.to_numeric(selected[column.name], errors="coerce").to_numpy(float)
+            first_repeat = values.reshape(len(keys), n_cycles * steps, repeats)[:, :, 0]
+            means[column.name] = mean_over_steps(first_repeat)
         else:
             means[column.name] = np.full(len(keys), np.nan)
     return means
@@ -195,7 +208,7 @@ def reduce_readings(
         )
         result = reduce_blocks(voltages, pattern, amplitude.to_numpy())
         setpoints = {column.name: first[column.name].to_numpy() for column in setpoint_columns()}
-        readbacks = _mean_readbacks(selected, keys)
+        readbacks = _mean_readbacks(selected, keys, int(n_cycles), steps, repeats)
         table = pd.DataFrame(
             {
                 "point": keys.get_level_values(0),
