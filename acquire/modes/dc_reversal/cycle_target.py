@@ -28,6 +28,7 @@ from dataclasses import dataclass, field
 from pydantic import Field, model_validator
 
 from acquire.inputs.protocol import Strict
+from acquire.modes.dc_reversal.reduction import t_coverage_factor
 from acquire.plan.noise_budget import cycles_for_target
 from drivers.quantities import Ratio
 
@@ -83,10 +84,12 @@ class CyclePlanner:
 
     def record(self, current_A: float, n_cycles: int, unidirectional_err_ohm: float,
                resistance_ohm: float) -> None:
-        """A stored point: its per-cycle variance of U (err^2 * n), in volts^2."""
+        """A stored point: its per-cycle variance of U (standard error^2 * n), in volts^2.
+        points.csv quotes the 68.3 % Student's t half-width: the t factor comes off first."""
         if n_cycles < 2 or not math.isfinite(unidirectional_err_ohm):
             return
-        self.history.append((unidirectional_err_ohm**2 * n_cycles * current_A**2, n_cycles - 1))
+        standard_error = unidirectional_err_ohm / float(t_coverage_factor(n_cycles - 1))
+        self.history.append((standard_error**2 * n_cycles * current_A**2, n_cycles - 1))
         while sum(dof for _, dof in self.history) - self.history[0][1] >= POOLED_DOF:
             self.history.popleft()
         if math.isfinite(resistance_ohm) and resistance_ohm > 0:
