@@ -41,7 +41,7 @@ R_OHM, I_A = 300.0, 1e-3
 
 def _synthetic_night(rule: str, seed: int, points: int, target: float = 0.15e-6
                      ) -> tuple[np.ndarray, np.ndarray, np.ndarray]:
-    """(cycles, ratio - truth, quoted error) of each point of a synthetic night whose noise
+    """(cycles, ratio - truth, standard error) of each point of a synthetic night whose noise
     wanders by +-40 % (so the cycles must follow it); the reduction is the project's."""
     rng = np.random.default_rng(seed)
     planner = CyclePlanner(CycleTarget(target=f"{target * 1e6} ppm", min=3, max=40),
@@ -64,8 +64,11 @@ def _synthetic_night(rule: str, seed: int, points: int, target: float = 0.15e-6
         result = reduce_blocks(voltages, "+0-", np.array([I_A]))
         planner.record(I_A, result.n_cycles, float(result.unidirectional_ohm_err[0]),
                        float(result.resistance_ohm[0]))
+        # The reduction quotes the 68.27 % t half-width; back to the standard error with
+        # Student's t of n - 1 dof (scipy.stats.t).
+        t68 = stats.t.ppf(stats.norm.cdf(1.0), result.n_cycles - 1)
         rows.append((result.n_cycles, result.unidirectional_ratio[0] - TRUE_RATIO,
-                     result.unidirectional_ratio_err[0]))
+                     result.unidirectional_ratio_err[0] / t68))
     n, deviation, error = (np.array(column) for column in zip(*rows))
     return n, deviation, error
 
