@@ -24,7 +24,7 @@ from tests.test_run_simulated import truth_model
 ROOT = Path(__file__).resolve().parent.parent
 RIG = ROOT / "protocols" / "rigs" / "simulated.yaml"
 PROTOCOL = ROOT / "tests" / "protocols" / "fit_pulls.yaml"
-QUANTITIES = (("angle", "umr_ohm"), ("angle", "amr_ohm"), ("angle", "planar_hall_ohm"),
+QUANTITIES = (("angle", "umr_ohm"), ("angle", "amr_plus_smr_ohm"), ("angle", "planar_hall_ohm"),
               ("current", "umr_linear_ohm"))
 
 
